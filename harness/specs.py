@@ -1,0 +1,202 @@
+"""Loading spec files: gripper specs (with sweeps) and object sets, validated before anything runs."""
+
+from __future__ import annotations
+
+import copy
+import difflib
+import hashlib
+import itertools
+import json
+import tomllib
+from dataclasses import dataclass, fields, is_dataclass
+from pathlib import Path
+
+from .errors import SpecError
+from .fields import Problems, field_keys, parse
+
+__all__ = ["load_toml", "inside", "GripperSpec", "Variant", "load_gripper", "load_any", "spec_hash",
+           "normalised"]
+
+_COMMON_GRIPPER_KEYS = ("family", "name", "description", "sweep")
+
+
+def load_toml(path):
+    """Read a TOML file; a missing or unreadable file or a syntax error is one SpecError."""
+    path = Path(path)
+    if not path.is_file():
+        raise SpecError(path, [("", "file not found" if not path.exists() else "is not a regular file")])
+    try:
+        with path.open("rb") as fh:
+            return tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(path, [("", f"is not valid TOML: {exc}")]) from None
+    except (UnicodeDecodeError, OSError) as exc:
+        raise SpecError(path, [("", f"cannot be read as TOML text: {exc}")]) from None
+
+
+def inside(spec_file, relative, field, problems, want="file"):
+    """Resolve `relative` against the spec's folder; it must stay inside that folder and exist."""
+    base = Path(spec_file).resolve().parent
+    target = (base / relative).resolve()
+    if not target.is_relative_to(base):
+        problems.add(field, f"must name a path inside the spec's folder {base}; got {relative!r}, which leaves it")
+        return None
+    exists = target.is_dir() if want == "folder" else target.is_file()
+    if not exists:
+        problems.add(field, f"must name an existing {want} relative to {base}; got {relative!r} (not found)")
+        return None
+    return target
+
+
+def normalised(obj):
+    """A JSON-ready, order-stable form of a parsed spec (SI values), used for hashing and records."""
+    if is_dataclass(obj):
+        return {f.name: normalised(getattr(obj, f.name)) for f in fields(obj)}
+    if isinstance(obj, (tuple, list)):
+        return [normalised(x) for x in obj]
+    if isinstance(obj, Path):
+        return str(obj)
+    if isinstance(obj, dict):
+        return {str(k): normalised(v) for k, v in sorted(obj.items())}
+    return obj
+
+
+def spec_hash(*parts):
+    """First 12 hex digits of SHA-256 over the normalised parts and the tool version."""
+    from . import __version__
+    blob = json.dumps([__version__, *[normalised(p) for p in parts]], sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(blob.encode()).hexdigest()[:12]
+
+
+@dataclass(frozen=True)
+class Variant:
+    """One design variant of a gripper spec: the sweep values it takes and its parsed parameters."""
+
+    name: str
+    sweep: tuple[tuple[str, object], ...]
+    params: object
+
+
+@dataclass(frozen=True)
+class GripperSpec:
+    file: Path
+    name: str
+    family: str
+    description: str
+    variants: tuple[Variant, ...]
+
+
+def _family_problems(raw, problems):
+    from .grippers import FAMILIES
+    family = raw.get("family")
+    if family not in FAMILIES:
+        near = difflib.get_close_matches(str(family), list(FAMILIES), n=1, cutoff=0.5)
+        hint = f"; did you mean '{near[0]}'?" if near else ""
+        allowed = ", ".join(repr(f) for f in FAMILIES)
+        problems.add("family", f"must be one of {allowed}; got {family!r}{hint}" if family is not None
+                     else f"is missing; it must be one of {allowed}")
+        return None
+    return FAMILIES[family]
+
+
+def _sweep_items(raw, family, problems):
+    sweep = raw.get("sweep", {})
+    if not isinstance(sweep, dict):
+        problems.add("sweep", f"must be a table of 'dotted.key = [values]'; got {sweep!r}")
+        return []
+    items = []
+    for key, values in sweep.items():
+        path = f"sweep.{key}"
+        if not _known_path(family.Params, key.split(".")):
+            problems.add(path, f"must name a parameter of family '{raw['family']}'{_near_path(family.Params, key)}")
+        elif not isinstance(values, list) or not values:
+            problems.add(path, f"must be a non-empty list of values; got {values!r}")
+        elif len(set(map(repr, values))) != len(values):
+            problems.add(path, f"must not repeat a value; got {values!r}")
+        else:
+            items.append((key, values))
+    return items
+
+
+def _known_path(cls, parts):
+    keys = field_keys(cls)
+    f = keys.get(parts[0])
+    if f is None:
+        return False
+    if len(parts) == 1:
+        return "rule" in f.metadata
+    if "section" not in f.metadata:
+        return False
+    from .fields import _section_type
+    return _known_path(_section_type(cls, f), parts[1:])
+
+
+def _all_paths(cls, prefix=""):
+    from .fields import _section_type
+    for key, f in field_keys(cls).items():
+        if "rule" in f.metadata:
+            yield prefix + key
+        elif "section" in f.metadata:
+            yield from _all_paths(_section_type(cls, f), prefix + key + ".")
+
+
+def _near_path(cls, key):
+    near = difflib.get_close_matches(key, list(_all_paths(cls)), n=1, cutoff=0.6)
+    return f"; did you mean '{near[0]}'?" if near else ""
+
+
+def _set_path(table, parts, value):
+    for part in parts[:-1]:
+        table = table.setdefault(part, {})
+    table[parts[-1]] = value
+
+
+def load_gripper(path, raw=None):
+    """Parse a gripper spec and every variant its sweep expands to; raise SpecError listing all problems."""
+    path = Path(path)
+    raw = load_toml(path) if raw is None else raw
+    problems = Problems(path)
+    family = _family_problems(raw, problems)
+    name = raw.get("name")
+    if not isinstance(name, str) or not name.strip():
+        problems.add("name", f"must be a non-empty text naming the gripper; got {name!r}")
+    description = raw.get("description", "")
+    if not isinstance(description, str):
+        problems.add("description", f"must be a text; got {description!r}")
+    if family is None:
+        problems.raise_if_any()
+    sweep = _sweep_items(raw, family, problems)
+    body = {k: v for k, v in raw.items() if k not in _COMMON_GRIPPER_KEYS}
+    base = parse(family.Params, body, problems)
+    variants = []
+    if base is not None:
+        combos = itertools.product(*[values for _, values in sweep]) if sweep else [()]
+        for combo in combos:
+            chosen = tuple((key, value) for (key, _), value in zip(sweep, combo))
+            table = copy.deepcopy(body)
+            for key, value in chosen:
+                _set_path(table, key.split("."), value)
+            label = ", ".join(f"{k}={v}" for k, v in chosen)
+            sub = Problems(path)
+            params = parse(family.Params, table, sub)
+            for field, message in sub.items:
+                problems.add(field, f"{message} (in sweep variant {label})")
+            if params is not None:
+                variants.append(Variant(f"{name}[{label}]" if chosen else str(name), chosen, params))
+    if base is not None and hasattr(family, "check_files"):
+        family.check_files(base, path, problems)
+    problems.raise_if_any()
+    return GripperSpec(path, str(name), raw["family"], description, tuple(variants))
+
+
+def load_any(path):
+    """Load a gripper spec (has `family`) or an object set (has [[object]])."""
+    raw = load_toml(path)
+    if "family" in raw:
+        return load_gripper(path, raw)
+    if "object" in raw or "seed" in raw:
+        from .objects import load_object_set
+        return load_object_set(path, raw)
+    raise SpecError(path, [("", "is neither a gripper spec (needs a 'family' key) nor an object set "
+                                "(needs [[object]] tables and a 'seed')")])
+
