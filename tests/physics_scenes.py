@@ -1,0 +1,24 @@
+"""Small scenes shared by the physics reference tests, built with the harness's own generators."""
+
+import math
+
+import numpy as np
+
+from harness.objects import generate, load_object_set
+from harness.world import World, add_object
+
+
+def one_object(kind, **fields):
+    """Generate a single object instance of `kind` from spec-file style fields."""
+    raw = {"name": "scene", "seed": 1, "object": [{"name": kind, "kind": kind, "restitution": 0.0, **fields}]}
+    return generate(load_object_set("scene.toml", raw))[0]
+
+
+def on_incline(world: World, instance, tilt, mu_table, lift=0.0):
+    """Put `instance` (resting on its lowest face, its half height `lift` above the surface) on a
+    table tilted by `tilt` rad about y; returns (body, downhill unit vector)."""
+    world.add_table(size=(3.0, 1.0, 0.05), tilt=tilt, friction=mu_table)
+    normal = np.array([math.sin(tilt), 0.0, math.cos(tilt)])
+    orn = world.p.getQuaternionFromEuler((0, tilt, 0))
+    body = add_object(world, instance, (normal * lift).tolist(), orn)
+    return body, np.array([math.cos(tilt), 0.0, -math.sin(tilt)])
