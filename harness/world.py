@@ -7,7 +7,9 @@ Honest defaults, each chosen against an engine default that biases results:
 - a pair's Coulomb friction is chosen deliberately: the engine multiplies the two bodies'
   coefficients, so each body gets sqrt(its own mu) and the pair acts with the geometric mean
   sqrt(mu_a mu_b), which is what the journal records as the pair's value,
-- deterministic overlapping pairs, so the same commands give the same numbers.
+- deterministic overlapping pairs, so the same commands give the same numbers,
+- no sleeping: a resting body would ignore its motors' next command (a roller pressed on a
+  fixed object did not turn at any torque until sleeping was disabled).
 """
 
 from __future__ import annotations
@@ -89,6 +91,7 @@ class World:
             p.changeDynamics(body, link, linearDamping=0.0, angularDamping=0.0, jointDamping=0.0,
                              maxJointVelocity=self.settings.max_joint_speed, frictionAnchor=1,
                              physicsClientId=self.cid)
+        p.changeDynamics(body, -1, activationState=p.ACTIVATION_STATE_DISABLE_SLEEPING, physicsClientId=self.cid)
         for j in range(p.getNumJoints(body, physicsClientId=self.cid)):
             # every joint carries a braking velocity motor by default; free them, controllers re-enable
             p.setJointMotorControl2(body, j, p.VELOCITY_CONTROL, force=0.0, physicsClientId=self.cid)
@@ -146,11 +149,11 @@ class World:
         return self.p.getContactPoints(bodyA=body_a, bodyB=body_b, physicsClientId=self.cid, **kw)
 
 
-def add_object(world, instance, position, orientation=(0, 0, 0, 1), friction_scale=1.0, mass_scale=1.0):
+def add_object(world, instance, position, orientation=(0, 0, 0, 1), friction_scale=1.0, mass_scale=1.0, fixed=False):
     """Load an ObjectInstance with its own material; `position` is of its URDF frame (m)."""
     from .build import materialise
     path = materialise(instance.name, instance.urdf, instance.files, model_cache())
-    body = world.load(path, position, orientation, implicit_cylinders=True)
+    body = world.load(path, position, orientation, fixed=fixed)
     world.set_surface(body, -1, instance.friction * friction_scale, instance.restitution,
                       instance.stiffness, instance.damping)
     if mass_scale != 1.0:

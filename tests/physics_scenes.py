@@ -22,3 +22,28 @@ def on_incline(world: World, instance, tilt, mu_table, lift=0.0):
     orn = world.p.getQuaternionFromEuler((0, tilt, 0))
     body = add_object(world, instance, (normal * lift).tolist(), orn)
     return body, np.array([math.cos(tilt), 0.0, -math.sin(tilt)])
+
+
+def roller_hand(**roller):
+    """The duo-roller demo gripper (12 mm rollers), with roller fields overridden, as a GripperModel."""
+    import tomllib
+    from pathlib import Path
+
+    from harness.grippers import build_models
+    from harness.specs import load_gripper
+    path = Path(__file__).resolve().parents[1] / "models" / "grippers" / "duo-roller.toml"
+    raw = tomllib.loads(path.read_text())
+    raw.pop("sweep")
+    raw["finger"]["roller"].update(roller)
+    return build_models(load_gripper(path, raw))[0]
+
+
+def ball_between_rollers(world, model, ball, below_palm=0.095, hand_height=0.3, fixed=False):
+    """Hand pointing down at `hand_height`, ball centred `below_palm` under the palm, fingers closed on it."""
+    from harness.hand import Hand
+    hand = Hand(world, model, (0, 0, hand_height))
+    body = add_object(world, ball, (0, 0, hand_height - below_palm), fixed=fixed)
+    for _ in range(120):
+        hand.close()
+        world.step()
+    return hand, body
