@@ -127,8 +127,8 @@ def field_keys(cls):
     return out
 
 
-def _unknown_keys(cls, table, prefix, problems):
-    keys = field_keys(cls)
+def _unknown_keys(cls, table, prefix, problems, known=()):
+    keys = [*field_keys(cls), *known]
     for key in table:
         if key not in keys:
             near = difflib.get_close_matches(str(key), list(keys), n=1, cutoff=0.6)
@@ -136,13 +136,15 @@ def _unknown_keys(cls, table, prefix, problems):
             problems.add(_join(prefix, key), "is not a known key" + hint)
 
 
-def parse(cls, table, problems: Problems, prefix=""):
-    """Build `cls` from a TOML table. Returns None when any problem was found (all are recorded)."""
+def parse(cls, table, problems: Problems, prefix="", known=()):
+    """Build `cls` from a TOML table. Returns None when any problem was found (all are recorded).
+
+    `known` names further keys the caller handles itself (they are not errors here)."""
     if not isinstance(table, dict):
         problems.add(prefix, f"must be a table; got {table!r}")
         return None
     before = len(problems.items)
-    _unknown_keys(cls, table, prefix, problems)
+    _unknown_keys(cls, table, prefix, problems, known)
     values = {}
     for key, f in field_keys(cls).items():
         path = _join(prefix, key)

@@ -89,7 +89,7 @@ class GripperSpec:
 def _family_problems(raw, problems):
     from .grippers import FAMILIES
     family = raw.get("family")
-    if family not in FAMILIES:
+    if not isinstance(family, str) or family not in FAMILIES:
         near = difflib.get_close_matches(str(family), list(FAMILIES), n=1, cutoff=0.5)
         hint = f"; did you mean '{near[0]}'?" if near else ""
         allowed = ", ".join(repr(f) for f in FAMILIES)
@@ -99,13 +99,22 @@ def _family_problems(raw, problems):
     return FAMILIES[family]
 
 
+def _flatten(table, prefix=""):
+    """An unquoted dotted key (finger.roller.radius_mm = [...]) reads as nested tables; join it back."""
+    for key, value in table.items():
+        if isinstance(value, dict):
+            yield from _flatten(value, f"{prefix}{key}.")
+        else:
+            yield f"{prefix}{key}", value
+
+
 def _sweep_items(raw, family, problems):
     sweep = raw.get("sweep", {})
     if not isinstance(sweep, dict):
         problems.add("sweep", f"must be a table of 'dotted.key = [values]'; got {sweep!r}")
         return []
     items = []
-    for key, values in sweep.items():
+    for key, values in _flatten(sweep):
         path = f"sweep.{key}"
         if not _known_path(family.Params, key.split(".")):
             problems.add(path, f"must name a parameter of family '{raw['family']}'{_near_path(family.Params, key)}")
@@ -167,22 +176,23 @@ def load_gripper(path, raw=None):
         problems.raise_if_any()
     sweep = _sweep_items(raw, family, problems)
     body = {k: v for k, v in raw.items() if k not in _COMMON_GRIPPER_KEYS}
-    base = parse(family.Params, body, problems)
+    base = parse(family.Params, body, problems, known=_COMMON_GRIPPER_KEYS)
     variants = []
-    if base is not None:
-        combos = itertools.product(*[values for _, values in sweep]) if sweep else [()]
-        for combo in combos:
-            chosen = tuple((key, value) for (key, _), value in zip(sweep, combo))
-            table = copy.deepcopy(body)
-            for key, value in chosen:
-                _set_path(table, key.split("."), value)
-            label = ", ".join(f"{k}={v}" for k, v in chosen)
-            sub = Problems(path)
-            params = parse(family.Params, table, sub)
-            for field, message in sub.items:
+    # variants are checked even when the base has problems, so every problem is reported at once
+    combos = itertools.product(*[values for _, values in sweep]) if sweep else [()]
+    for combo in combos:
+        chosen = tuple((key, value) for (key, _), value in zip(sweep, combo))
+        table = copy.deepcopy(body)
+        for key, value in chosen:
+            _set_path(table, key.split("."), value)
+        label = ", ".join(f"{k}={v}" for k, v in chosen)
+        sub = Problems(path)
+        params = parse(family.Params, table, sub)
+        for field, message in sub.items:
+            if (field, message) not in problems.items:  # the base's own problems are reported once
                 problems.add(field, f"{message} (in sweep variant {label})")
-            if params is not None:
-                variants.append(Variant(f"{name}[{label}]" if chosen else str(name), chosen, params))
+        if params is not None:
+            variants.append(Variant(f"{name}[{label}]" if chosen else str(name), chosen, params))
     if base is not None and hasattr(family, "check_files"):
         family.check_files(base, path, problems)
     problems.raise_if_any()

@@ -54,7 +54,9 @@ def load_object_set(path, raw):
     name, seed = raw.get("name"), raw.get("seed")
     if not isinstance(name, str) or not name.strip():
         problems.add("name", f"must be a non-empty text naming the set; got {name!r}")
-    if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
+    if seed is None:
+        problems.add("seed", "is missing; it must be a whole number >= 0")
+    elif not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
         problems.add("seed", f"must be a whole number >= 0; got {seed!r}")
     items = raw.get("object")
     if not isinstance(items, list) or not items:
@@ -63,8 +65,16 @@ def load_object_set(path, raw):
     entries, names = [], set()
     for i, item in enumerate(items):
         at = f"object[{i}]"
-        kind = item.get("kind") if isinstance(item, dict) else None
-        if kind not in KINDS and kind not in FILE_KINDS:
+        if not isinstance(item, dict):
+            problems.add(at, f"must be a table ([[object]] with name, kind, ...); got {item!r}")
+            continue
+        name_given = item.get("name")
+        if isinstance(name_given, str):
+            if name_given in names:
+                problems.add(f"{at}.name", f"must be unique within the set; {name_given!r} is used twice")
+            names.add(name_given)
+        kind = item.get("kind")
+        if not isinstance(kind, str) or (kind not in KINDS and kind not in FILE_KINDS):
             near = difflib.get_close_matches(str(kind), ALL_KINDS, n=1, cutoff=0.5)
             problems.add(f"{at}.kind", f"must be one of {', '.join(ALL_KINDS)}; got {kind!r}"
                          + (f"; did you mean '{near[0]}'?" if near else ""))
@@ -72,9 +82,6 @@ def load_object_set(path, raw):
         entry = parse(_spec_class(kind), item, problems, at)
         if entry is None:
             continue
-        if entry.name in names:
-            problems.add(f"{at}.name", f"must be unique within the set; {entry.name!r} is used twice")
-        names.add(entry.name)
         if kind in FILE_KINDS:
             FILE_KINDS[kind][1](entry, path, problems, at)
         entries.append(entry)

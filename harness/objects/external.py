@@ -45,13 +45,17 @@ class UrdfFolderSpec(Common):
 def _load_mesh(path, digest):
     """(vertices, faces, convex parts) of a mesh file; cached on the file's content digest."""
     import trimesh
-    mesh = trimesh.load(path, force="mesh", process=True)
+    try:
+        mesh = trimesh.load(path, force="mesh", process=False)
+    except Exception as exc:  # the file parsers raise many kinds of errors on damaged files
+        raise ValueError(f"is truncated or damaged; the mesh reader says: {exc}") from None
     if not isinstance(mesh, trimesh.Trimesh) or len(mesh.faces) == 0:
         raise ValueError("holds no triangles")
-    if not mesh.is_watertight:
-        raise ValueError("is not a closed solid (not watertight), so it has no volume")
     if not np.all(np.isfinite(mesh.vertices)):
         raise ValueError("has vertices that are not finite numbers")
+    mesh.process()  # merge duplicate vertices only after the finiteness check (NaN would be dropped)
+    if not mesh.is_watertight:
+        raise ValueError("is not a closed solid (not watertight), so it has no volume")
     mesh.fix_normals()
     if mesh.volume <= 0:
         raise ValueError("encloses no volume")
