@@ -125,12 +125,15 @@ def read_urdf_object(file):
     el = link.find("inertial")
     try:
         mass = float(el.find("mass").get("value"))
-        xyz = [float(x) for x in el.find("origin").get("xyz", "0 0 0").split()] if el.find("origin") is not None \
-            else [0.0, 0.0, 0.0]
+        origin = el.find("origin")
+        xyz = [float(x) for x in (origin.get("xyz", "0 0 0") if origin is not None else "0 0 0").split()]
+        rpy = [float(x) for x in (origin.get("rpy", "0 0 0") if origin is not None else "0 0 0").split()]
         i = {k: float(el.find("inertia").get(k, 0)) for k in ("ixx", "ixy", "ixz", "iyy", "iyz", "izz")}
     except (AttributeError, TypeError, ValueError):
         raise ValueError(f"link {link.get('name')!r} needs an <inertial> with <mass> and <inertia>") from None
     inertia = np.array([[i["ixx"], i["ixy"], i["ixz"]], [i["ixy"], i["iyy"], i["iyz"]], [i["ixz"], i["iyz"], i["izz"]]])
+    rot = _rpy_matrix(*rpy)  # the file gives the tensor in the inertial frame; we keep the link frame
+    inertia = rot @ inertia @ rot.T
     if not (np.isfinite(mass) and mass > 0 and np.all(np.isfinite(inertia)) and np.all(np.linalg.eigvalsh(inertia) > 0)):
         raise ValueError(f"link {link.get('name')!r} must have a finite mass > 0 and a positive-definite inertia")
     for mesh in link.iter("mesh"):
@@ -138,3 +141,12 @@ def read_urdf_object(file):
         if not target.is_relative_to(Path(file).parent.resolve()) or not target.is_file():
             raise ValueError(f"references mesh {mesh.get('filename')!r}, missing or outside its folder")
     return mass, np.array(xyz), inertia
+
+
+def _rpy_matrix(roll, pitch, yaw):
+    """URDF fixed-axis x-y-z rotation: R = Rz(yaw) Ry(pitch) Rx(roll) (URDF specification)."""
+    cr, sr, cp, sp, cy, sy = np.cos(roll), np.sin(roll), np.cos(pitch), np.sin(pitch), np.cos(yaw), np.sin(yaw)
+    rx = np.array([[1, 0, 0], [0, cr, -sr], [0, sr, cr]])
+    ry = np.array([[cp, 0, sp], [0, 1, 0], [-sp, 0, cp]])
+    rz = np.array([[cy, -sy, 0], [sy, cy, 0], [0, 0, 1]])
+    return rz @ ry @ rx
