@@ -36,6 +36,12 @@ achievable set is just large and the command is usually fully achieved. The roll
 then consistent with the returned twist but do not force it: other twists produce the same
 contact velocities. `SteeringResult.determined` says whether the contacts pin the twist (the
 stacked 3n x 6 contact Jacobian has rank 6).
+
+Steering is modelled as linear: a steerable contact (steer_pivots and a non-zero pivot range)
+is assumed able to roll in any tangent direction, which holds for a range of at least 180 deg
+and a pivot axis along the normal. Where a narrower range or a tilted pivot axis cannot reach
+the wanted direction, the nearest reachable one is returned and `SteeringResult.slip` shows the
+mismatch; `achieved` is then still the projection, not what those settings produce.
 """
 
 from __future__ import annotations
@@ -48,11 +54,11 @@ import numpy as np
 __all__ = ["RollerContact", "SteeringResult", "steer", "contact_jacobian", "grasp_matrix",
            "rolling_direction", "RANK_RTOL"]
 
+# Rank tolerance: a singular value of the length-scaled constraint matrix counts as zero when it
+# is at most RANK_RTOL times the largest one. Every normal row of that matrix has a unit linear
+# part, so the largest singular value is at least 1 and the cut-off is at least 1e-9 absolute:
+# constraints weaker than that (a near-degenerate contact layout) are treated as absent.
 RANK_RTOL = 1e-9
-"""Rank tolerance: a singular value of the length-scaled constraint matrix counts as zero when it
-is at most RANK_RTOL times the largest one. Every row of that matrix has a unit linear part, so
-the largest singular value is at least 1 and the tolerance is never below 1e-9 in absolute terms:
-constraints weaker than that (a near-degenerate contact layout) are treated as absent."""
 
 _GRID = 721  # samples of the pivot range when no in-range angle reaches the wanted direction
 
@@ -61,7 +67,6 @@ def _vec(value, name):
     v = np.array(value, dtype=float).reshape(-1)
     if v.shape != (3,) or not np.all(np.isfinite(v)):
         raise ValueError(f"{name} must be 3 finite numbers; got {value!r}")
-    v.flags.writeable = False
     return v
 
 
@@ -73,7 +78,6 @@ def _unit(value, name):
     if norm < 1e-12:
         raise ValueError(f"{name} must be a non-zero direction; got {value!r}")
     v = v / norm
-    v.flags.writeable = False
     return v
 
 
@@ -97,7 +101,7 @@ class RollerContact:
     pivot_axis: the pivot joint's axis (normalised); None means the contact normal.
     pivot_angle: the pivot joint's current angle (rad). pivot_range: (lower, upper) pivot limits
     (rad); a zero-width range means the roller cannot be steered.
-    Arrays are stored read-only as float64.
+    Vectors are stored as float64 copies (not read-only: some scipy routines reject those).
     """
 
     point: np.ndarray
@@ -257,7 +261,7 @@ def _pivot_for(contact, u, tiny):
     "g(phi) parallel to u" is one scalar equation alpha + beta cos(phi) + gamma sin(phi) = 0 with
     the in-plane normal q = n x unit(u): closed-form roots delta +- acos(-alpha / R). Of the
     roots (and their 2 pi shifts) inside the range, the one nearest the current angle wins
-    (then the faster-acting one); speed = u . g / |g|^2, negative when the roller runs backwards.
+    (then the one needing the lower speed); speed = u . g / |g|^2, negative when the roller runs backwards.
     If no root is in range, the angle in range that best aligns g with u (least-squares speed)
     is taken from a sampled search."""
     lo, hi = contact.pivot_range
@@ -299,26 +303,33 @@ def _pivot_for(contact, u, tiny):
             reach = abs(uh @ g)
             if reach <= 1e-9 * size:
                 continue
-            key = (round(abs(phi - current), 12), -reach, phi)
+            key = (round(abs(phi - current), 12), -round(reach / size, 9), phi)
             if best is None or key < best[0]:
                 best = (key, phi, g)
     if best is None:  # nothing in range is parallel: the best-aligned angle, sampled then refined
-        phis = np.linspace(lo, hi, _GRID)
-        for _ in range(2):
-            g = A[None] + np.cos(phis)[:, None] * B[None] + np.sin(phis)[:, None] * C[None]
-            gg = np.einsum("ij,ij->i", g, g)
-            score = np.where(gg > 1e-24 * size * size, (g @ uh) ** 2 / np.maximum(gg, 1e-300), 0.0)
-            i = int(np.argmax(score - 1e-15 * np.abs(phis - current)))
-            step = phis[1] - phis[0] if len(phis) > 1 else 0.0
-            phis = np.linspace(max(lo, phis[i] - step), min(hi, phis[i] + step), _GRID)
-        phi = float(phis[_GRID // 2]) if step else float(phis[0])
-        phi = float(phis[np.argmin(np.abs(phis - phi))])
+        phi = _best_aligned(A, B, C, uh, lo, hi, current, size)
         g = gain(phi)
-        if g @ g <= 1e-24 * size * size:
+        if g @ g <= (1e-12 * size) ** 2:
             return current, 0.0
         best = (None, phi, g)
     _, phi, g = best
     return float(phi), float(u @ g / (g @ g))
+
+
+def _best_aligned(A, B, C, uh, lo, hi, current, size):
+    """The angle in [lo, hi] maximising cos^2 between g(phi) and uh: a grid of _GRID samples,
+    then two finer grids around the best sample (final step about 1e-8 (hi - lo))."""
+    a, b = lo, hi
+    for _ in range(3):
+        phis = np.linspace(a, b, _GRID)
+        g = A[None] + np.cos(phis)[:, None] * B[None] + np.sin(phis)[:, None] * C[None]
+        gg = np.einsum("ij,ij->i", g, g)
+        score = np.where(gg > (1e-12 * size) ** 2, (g @ uh) ** 2 / np.maximum(gg, 1e-300), 0.0)
+        best = np.flatnonzero(score >= score.max() - 1e-12)
+        i = int(best[np.argmin(np.abs(phis[best] - current))])
+        step = (b - a) / (_GRID - 1)
+        a, b = max(lo, phis[i] - step), min(hi, phis[i] + step)
+    return float(phis[i])
 
 
 def steer(twist, origin, contacts, length_scale, steer_pivots=True, rtol=RANK_RTOL):
@@ -365,7 +376,7 @@ def steer(twist, origin, contacts, length_scale, steer_pivots=True, rtol=RANK_RT
         if gn > 1e-12 * c.radius:
             rows.append(np.cross(c.normal, g / gn) @ jac)
         else:  # the roller cannot move this contact tangentially: it must stay put
-            rows.append(_tangent(jac, c.normal))  # spans the two tangent rows (rank 2)
+            rows.append(jac - np.outer(c.normal, c.normal @ jac))  # the two tangent rows (rank 2)
     constraints = np.vstack([np.atleast_2d(r) for r in rows]) if rows else np.zeros((0, 6))
     achieved, dof = _project(constraints, scale, t, rtol)
     residual = t - achieved
