@@ -9,7 +9,7 @@ from dataclasses import dataclass
 from .. import urdf as U
 from ..fields import param, section
 from ..massprops import box_inertia
-from .model import GripperModel, Surface
+from .model import GripperModel, Pad, Surface
 
 __all__ = ["Params", "build"]
 
@@ -41,21 +41,15 @@ class Jaw:
 
 
 @dataclass(frozen=True, kw_only=True)
-class Pad:
-    length: float = param("length_mm", unit="mm", gt=0)
+class JawPad(Pad):
     width: float = param("width_mm", unit="mm", gt=0)
-    thickness: float = param("thickness_mm", unit="mm", gt=0)
-    mass: float = param("mass_kg", gt=0, default=0.005)
-    friction: float = param("friction", gt=0, le=10)
-    stiffness: float = param("stiffness_n_m", gt=0)
-    damping: float = param("damping_n_s_m", ge=0)
 
 
 @dataclass(frozen=True, kw_only=True)
 class Params:
     palm: Palm = section("palm")
     jaw: Jaw = section("jaw")
-    pad: Pad = section("pad")
+    pad: JawPad = section("pad")
 
     def check(self):
         if self.pad.length > self.jaw.length:
@@ -88,7 +82,7 @@ def build(spec, variant):
                              (-side * (j.thickness + pad.thickness) / 2, 0, j.length - pad.length / 2)))
         parts.append(U.link(f"{n}_pad", pad.mass, (0, 0, 0), box_inertia(pad.mass, *pad_size),
                             [(U.geometry("box", pad_size), (0, 0, 0), (0, 0, 0))], rgba=(0.2, 0.55, 0.3, 1)))
-        surfaces[f"{n}_pad"] = Surface(pad.friction, pad.stiffness, pad.damping)
+        surfaces[f"{n}_pad"] = pad.surface()
     return GripperModel(
         name=variant.name, family="jaw", key=spec_hash("jaw", p), urdf=U.robot(variant.name, parts),
         close_joints=("jaw0_slide", "jaw1_slide"), surfaces=surfaces,

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-__all__ = ["GripperModel", "Surface", "build_models"]
+from ..fields import param
+
+__all__ = ["GripperModel", "Surface", "Pad", "build_models"]
 
 
 @dataclass(frozen=True)
@@ -15,6 +17,21 @@ class Surface:
     friction: float
     stiffness: float | None = None
     damping: float | None = None
+
+
+@dataclass(frozen=True, kw_only=True)
+class Pad:
+    """A passive friction pad (spec section shared by the families): size, mass and material."""
+
+    length: float = param("length_mm", unit="mm", gt=0)
+    thickness: float = param("thickness_mm", unit="mm", gt=0)
+    mass: float = param("mass_kg", gt=0, default=0.005)
+    friction: float = param("friction", gt=0, le=10)
+    stiffness: float = param("stiffness_n_m", gt=0)
+    damping: float = param("damping_n_s_m", ge=0)
+
+    def surface(self):
+        return Surface(self.friction, self.stiffness, self.damping)
 
 
 @dataclass(frozen=True)

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 from .. import urdf as U
 from ..fields import param, section
 from ..massprops import box_inertia, cylinder_inertia
-from .model import GripperModel, Surface
+from .model import GripperModel, Pad, Surface
 
 __all__ = ["Params", "build"]
 
@@ -61,18 +61,6 @@ class Roller:
     damping: float = param("damping_n_s_m", ge=0)
     torque: float = param("torque_nm", gt=0, doc="roller motor torque limit")
     speed: float = param("speed_rpm", unit="rpm", gt=0, doc="roller motor speed limit")
-
-
-@dataclass(frozen=True, kw_only=True)
-class Pad:
-    """A passive friction pad on the inner face of the finger link."""
-
-    length: float = param("length_mm", unit="mm", gt=0)
-    thickness: float = param("thickness_mm", unit="mm", gt=0)
-    mass: float = param("mass_kg", gt=0, default=0.005)
-    friction: float = param("friction", gt=0, le=10)
-    stiffness: float = param("stiffness_n_m", gt=0)
-    damping: float = param("damping_n_s_m", ge=0)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -156,7 +144,7 @@ def build(spec, variant):
                                  (-(f.thickness + pad.thickness) / 2, 0, f.length / 2)))
             parts.append(U.link(f"{n}_pad", pad.mass, (0, 0, 0), box_inertia(pad.mass, *size),
                                 [(U.geometry("box", size), (0, 0, 0), (0, 0, 0))], rgba=(0.2, 0.55, 0.3, 1)))
-            surfaces[f"{n}_pad"] = Surface(pad.friction, pad.stiffness, pad.damping)
+            surfaces[f"{n}_pad"] = pad.surface()
     key = spec_hash("roller-finger", p)
     return GripperModel(
         name=variant.name, family="roller-finger", key=key, urdf=U.robot(variant.name, parts),
