@@ -24,8 +24,8 @@ def on_incline(world: World, instance, tilt, mu_table, lift=0.0):
     return body, np.array([math.cos(tilt), 0.0, -math.sin(tilt)])
 
 
-def roller_hand(**roller):
-    """The duo-roller demo gripper (12 mm rollers), with roller fields overridden, as a GripperModel."""
+def roller_hand(flex=None, **roller):
+    """The duo-roller demo gripper (12 mm rollers), with roller (and flex motor) fields overridden."""
     import tomllib
     from pathlib import Path
 
@@ -35,6 +35,7 @@ def roller_hand(**roller):
     raw = tomllib.loads(path.read_text())
     raw.pop("sweep")
     raw["finger"]["roller"].update(roller)
+    raw["finger"]["flex"].update(flex or {})
     return build_models(load_gripper(path, raw))[0]
 
 
