@@ -12,6 +12,8 @@ import shutil
 import tempfile
 from pathlib import Path
 
+from .urdf import safe_name
+
 __all__ = ["content_key", "materialise"]
 
 URDF_NAME = "model.urdf"
@@ -31,8 +33,7 @@ def materialise(name, urdf, files, root):
     The folder is filled under a temporary name and renamed into place, so a reader never sees
     a half-written model (rename is atomic on one file system).
     """
-    safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in name)
-    folder = Path(root) / f"{safe}-{content_key(urdf, files)}"
+    folder = Path(root) / f"{safe_name(name)}-{content_key(urdf, files)}"
     if (folder / URDF_NAME).is_file():
         return folder / URDF_NAME
     Path(root).mkdir(parents=True, exist_ok=True)

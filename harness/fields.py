@@ -17,7 +17,7 @@ from pathlib import Path
 
 from .constants import UNIT_TO_SI
 
-__all__ = ["param", "section", "sections", "parse", "Problems", "Span", "field_keys"]
+__all__ = ["param", "section", "sections", "parse", "Problems", "Span", "field_keys", "section_type"]
 
 _MISSING = dataclasses.MISSING
 
@@ -110,7 +110,8 @@ def _join(prefix, key):
     return f"{prefix}.{key}" if prefix else key
 
 
-def _section_type(cls, f):
+def section_type(cls, f):
+    """The section class a `section`/`sections` field of `cls` holds."""
     hint = typing.get_type_hints(cls)[f.name]
     args = [a for a in typing.get_args(hint) if a is not type(None) and a is not Ellipsis]
     return args[0] if args else hint
@@ -160,9 +161,9 @@ def parse(cls, table, problems: Problems, prefix="", known=()):
         if "rule" in md:
             values[f.name] = _leaf(md["rule"], raw, path, problems)
         elif "section" in md:
-            values[f.name] = parse(_section_type(cls, f), raw, problems, path)
+            values[f.name] = parse(section_type(cls, f), raw, problems, path)
         else:
-            sub = _section_type(cls, f)
+            sub = section_type(cls, f)
             if not isinstance(raw, list) or not raw:
                 problems.add(path, f"must be a non-empty list of tables ([[{key}]]); got {raw!r}")
                 continue

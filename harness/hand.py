@@ -46,10 +46,10 @@ class Hand:
                                   surface.stiffness, surface.damping)
         # the wrist constraint acts at the URDF frame of the palm, not at its centre of mass
         dyn = p.getDynamicsInfo(self.body, -1, physicsClientId=cid)
-        frame_pos, frame_orn = p.invertTransform(dyn[3], dyn[4])
-        self.wrist = p.createConstraint(self.body, -1, -1, -1, p.JOINT_FIXED, (0, 0, 0), frame_pos, (0, 0, 0),
-                                        childFrameOrientation=(0, 0, 0, 1), parentFrameOrientation=frame_orn,
-                                        physicsClientId=cid)
+        self._frame_in_com = p.invertTransform(dyn[3], dyn[4])  # URDF frame seen from the palm's COM frame
+        self.wrist = p.createConstraint(self.body, -1, -1, -1, p.JOINT_FIXED, (0, 0, 0), self._frame_in_com[0],
+                                        (0, 0, 0), childFrameOrientation=(0, 0, 0, 1),
+                                        parentFrameOrientation=self._frame_in_com[1], physicsClientId=cid)
         self.wrist_force = wrist_force
         self.move_wrist(position, orientation)
         # every driven joint starts held: pivots at 0 (or the nearest limit), rollers at rest
@@ -106,7 +106,5 @@ class Hand:
         """Pose of the palm's URDF frame (the hand frame): position (3,), rotation matrix (3, 3)."""
         p, cid = self.world.p, self.world.cid
         pos, orn = p.getBasePositionAndOrientation(self.body, physicsClientId=cid)
-        dyn = p.getDynamicsInfo(self.body, -1, physicsClientId=cid)
-        inv_pos, inv_orn = p.invertTransform(dyn[3], dyn[4])
-        pos, orn = p.multiplyTransforms(pos, orn, inv_pos, inv_orn)
+        pos, orn = p.multiplyTransforms(pos, orn, *self._frame_in_com)
         return np.array(pos), np.array(p.getMatrixFromQuaternion(orn)).reshape(3, 3)

@@ -12,7 +12,7 @@ from dataclasses import dataclass, fields, is_dataclass
 from pathlib import Path
 
 from .errors import SpecError
-from .fields import Problems, field_keys, parse
+from .fields import Problems, field_keys, parse, section_type
 
 __all__ = ["load_toml", "inside", "GripperSpec", "Variant", "load_gripper", "load_any", "spec_hash",
            "normalised"]
@@ -136,17 +136,15 @@ def _known_path(cls, parts):
         return "rule" in f.metadata
     if "section" not in f.metadata:
         return False
-    from .fields import _section_type
-    return _known_path(_section_type(cls, f), parts[1:])
+    return _known_path(section_type(cls, f), parts[1:])
 
 
 def _all_paths(cls, prefix=""):
-    from .fields import _section_type
     for key, f in field_keys(cls).items():
         if "rule" in f.metadata:
             yield prefix + key
         elif "section" in f.metadata:
-            yield from _all_paths(_section_type(cls, f), prefix + key + ".")
+            yield from _all_paths(section_type(cls, f), prefix + key + ".")
 
 
 def _near_path(cls, key):
@@ -177,10 +175,10 @@ def load_gripper(path, raw=None):
     sweep = _sweep_items(raw, family, problems)
     body = {k: v for k, v in raw.items() if k not in _COMMON_GRIPPER_KEYS}
     base = parse(family.Params, body, problems, known=_COMMON_GRIPPER_KEYS)
-    variants = []
-    # variants are checked even when the base has problems, so every problem is reported at once
-    combos = itertools.product(*[values for _, values in sweep]) if sweep else [()]
-    for combo in combos:
+    # without a sweep the one variant is the base; with one, every variant is checked, even when
+    # the base has problems, so all problems are reported at once
+    variants = [Variant(str(name), (), base)] if not sweep and base is not None else []
+    for combo in itertools.product(*[values for _, values in sweep]) if sweep else ():
         chosen = tuple((key, value) for (key, _), value in zip(sweep, combo))
         table = copy.deepcopy(body)
         for key, value in chosen:
@@ -192,7 +190,7 @@ def load_gripper(path, raw=None):
             if (field, message) not in problems.items:  # the base's own problems are reported once
                 problems.add(field, f"{message} (in sweep variant {label})")
         if params is not None:
-            variants.append(Variant(f"{name}[{label}]" if chosen else str(name), chosen, params))
+            variants.append(Variant(f"{name}[{label}]", chosen, params))
     if base is not None and hasattr(family, "check_files"):
         family.check_files(base, path, problems)
     problems.raise_if_any()

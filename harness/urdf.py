@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["num", "vec", "inertial", "geometry", "link", "joint", "robot"]
+__all__ = ["num", "vec", "inertial", "geometry", "link", "joint", "robot", "safe_name"]
 
 
 def num(x):
@@ -72,7 +72,11 @@ def joint(name, kind, parent, child, xyz=(0, 0, 0), rpy=(0, 0, 0), axis=(0, 0, 1
     return "".join(text)
 
 
+def safe_name(name):
+    """`name` reduced to characters safe in an XML attribute and in a file name."""
+    return "".join(c if c.isalnum() or c in "-_." else "_" for c in name)
+
+
 def robot(name, parts):
-    """The whole document; `name` is reduced to characters safe in an XML attribute."""
-    safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in name)
-    return f'<?xml version="1.0"?>\n<robot name="{safe}">\n' + "".join(parts) + "</robot>\n"
+    """The whole document, named `safe_name(name)`."""
+    return f'<?xml version="1.0"?>\n<robot name="{safe_name(name)}">\n' + "".join(parts) + "</robot>\n"

@@ -157,8 +157,9 @@ def add_object(world, instance, position, orientation=(0, 0, 0, 1), friction_sca
     world.set_surface(body, -1, instance.friction * friction_scale, instance.restitution,
                       instance.stiffness, instance.damping)
     if mass_scale != 1.0:
-        # scale inertia with mass so the shape's mass distribution stays the same
-        inertia = np.diag(instance.inertia) * mass_scale
-        world.p.changeDynamics(body, -1, mass=instance.mass * mass_scale, localInertiaDiagonal=inertia.tolist(),
-                               physicsClientId=world.cid)
+        # scale inertia with mass so the shape's mass distribution stays the same; the engine keeps
+        # the principal moments (the file's tensor diagonalised), which is what it expects back
+        dyn = world.p.getDynamicsInfo(body, -1, physicsClientId=world.cid)
+        world.p.changeDynamics(body, -1, mass=dyn[0] * mass_scale,
+                               localInertiaDiagonal=[m * mass_scale for m in dyn[2]], physicsClientId=world.cid)
     return body

@@ -12,6 +12,7 @@ import xml.etree.ElementTree as ET
 from dataclasses import dataclass
 from pathlib import Path
 
+from ..build import content_key
 from ..fields import param, section
 from ..specs import inside
 from .model import GripperModel, Surface
@@ -109,7 +110,7 @@ def build(spec, variant):
     urdf_text = source.read_text()
     links = [lk.get("name") for lk in root.findall("link")]
     return GripperModel(
-        name=variant.name, family="urdf", key=spec_hash("urdf", p, urdf_text, sorted(files)),
+        name=variant.name, family="urdf", key=spec_hash("urdf", p, content_key(urdf_text, files)),
         urdf=urdf_text, close_joints=p.roles.close, pivot_joints=p.roles.pivot, roll_joints=p.roles.roll,
         roller_radius=p.roles.roller_radius, surfaces={name: Surface(p.friction) for name in links}, files=files,
         summary={"urdf": p.urdf, "links": len(links), "close_joints": len(p.roles.close),
