@@ -22,7 +22,7 @@ def register(subparsers):
     """Add the summary, compare and rank subcommands to an argparse subparsers object."""
     source = "a run folder, or a results table saved as .csv or .parquet"
     s = subparsers.add_parser("summary", help="success rates with intervals, outcome counts and metrics per cell",
-                              description="Per variant x object x routine: trials, success rate with a 95 %% "
+                              description="Per variant x object x routine: trials, success rate with a 95 % "
                                           "Wilson score interval, outcome counts, slip and drift (median, 90th "
                                           "percentile) and epsilon. " + EXCLUDED_NOTE)
     s.add_argument("run", metavar="RUN", help=source)
@@ -30,17 +30,18 @@ def register(subparsers):
     c = subparsers.add_parser(
         "compare", help="regression verdicts of a candidate against a baseline",
         description="Compare success, slip and drift cell by cell (object x routine) and overall, paired on "
-                    "shared perturbation draws where the tables share them. Give BASE and CANDIDATE (runs "
-                    "compared variant by variant), or one RUN with --variants to compare two of its variants. "
+                    "shared perturbation draws where the tables share them. Give BASE and CANDIDATE (two "
+                    "single-variant runs are compared directly, others variant by variant on shared names), "
+                    "or BASE alone with --variants to compare two of its variants. "
                     "Exit code 1 when any cell is significantly worse by more than --margin, else 0.")
     c.add_argument("base", metavar="BASE", help=f"the baseline: {source}")
     c.add_argument("candidate", metavar="CANDIDATE", nargs="?", help="the candidate (omit to compare two "
                                                                       "variants of BASE with --variants)")
     c.add_argument("--variants", nargs=2, metavar=("BASE_VARIANT", "CANDIDATE_VARIANT"),
                    help="compare these two variants (the first from BASE, the second from CANDIDATE or BASE)")
-    c.add_argument("--margin", type=float, default=0.05,
-                   help="largest tolerated drop in success rate, as a fraction (default 0.05)")
-    c.add_argument("--alpha", type=float, default=0.05,
+    c.add_argument("--margin", type=float, default=0.05, metavar="FRACTION",
+                   help="largest tolerated drop in success rate, e.g. 0.05 for 5 points (default 0.05)")
+    c.add_argument("--alpha", type=float, default=0.05, metavar="LEVEL",
                    help="significance level after Holm correction (default 0.05)")
     _add_format(c)
     r = subparsers.add_parser("rank", help="object and object-set difficulty with bootstrap intervals",
@@ -49,10 +50,10 @@ def register(subparsers):
     r.add_argument("run", metavar="RUN", help=source)
     r.add_argument("--by", choices=("success", "slip", "drift"), default="success",
                    help="success: Rasch difficulty (default); slip, drift: median slip_mm or drift_mm")
-    r.add_argument("--reps", type=int, default=200, help="bootstrap resamples (default 200)")
-    r.add_argument("--penalty", type=float, default=0.1,
+    r.add_argument("--reps", type=int, default=200, metavar="N", help="bootstrap resamples (default 200)")
+    r.add_argument("--penalty", type=float, default=0.1, metavar="L2",
                    help="L2 penalty of the Rasch fit; keeps always/never-succeeding objects finite (default 0.1)")
-    r.add_argument("--seed", type=int, default=0, help="seed of the bootstrap (default 0)")
+    r.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the bootstrap (default 0)")
     _add_format(r)
 
 

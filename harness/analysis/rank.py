@@ -44,7 +44,7 @@ def fit_rasch(successes, trials, variant_index, object_index, n_variants, n_obje
     Objective: -sum(k eta - n log(1 + e^eta)) + penalty / 2 (|ability|^2 + |difficulty|^2), with
     eta = ability[v] - difficulty[o]. Difficulties are identified by sum-to-zero: the optimiser
     sees the first n_objects - 1 and the last is minus their sum. With penalty 0 the estimates
-    diverge for objects or variants that always or never succeed. `x` warm-starts a refit.
+    diverge for objects or variants that always or never succeed. `start` (a previous `x`) warm-starts a refit.
     """
     k = np.asarray(successes, dtype=float)
     n = np.asarray(trials, dtype=float)
@@ -58,7 +58,7 @@ def fit_rasch(successes, trials, variant_index, object_index, n_variants, n_obje
         ability, difficulty = unpack(x)
         eta = ability[v] - difficulty[o]
         g = n * expit(eta) - k  # d(-loglik)/d(eta) per cell
-        value = np.sum(n * np.logaddexp(0, eta) - k * eta) + penalty / 2 * (x[:n_variants] @ x[:n_variants]
+        value = np.sum(n * np.logaddexp(0, eta) - k * eta) + penalty / 2 * (ability @ ability
                                                                               + difficulty @ difficulty)
         grad_a = np.bincount(v, g, n_variants) + penalty * ability
         grad_d = -np.bincount(o, g, n_objects) + penalty * difficulty
