@@ -8,21 +8,34 @@ rollers are velocity-controlled with theirs.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from .build import materialise
 from .grippers import GripperModel
 from .world import World, model_cache
 
-__all__ = ["Hand", "DOWN"]
+__all__ = ["Hand", "DOWN", "RollerJoints"]
 
 DOWN = (1.0, 0.0, 0.0, 0.0)  # quaternion (x, y, z, w): hand z (approach) pointing along world -z
 WRIST_FORCE = 500.0  # N; an arm's flange is far stiffer than a finger (common practice value)
 # Closing joints are driven as if geared to one actuator: each finger's target leads the mean
-# closure by this much (rad), so every finger pushes with its full torque while the fingers stay
-# within about this angle of each other. Without it, equal torques on an object are only
-# neutrally stable and the object is shoved until one finger hits its stop.
-CLOSE_LEAD = 0.02
+# closure by what the joint travels at full speed in CLOSE_LEAD_TIME, so every finger pushes with
+# its full torque while the fingers stay within that distance of each other. Without it, equal
+# torques on an object are only neutrally stable and the object is shoved until one finger hits
+# its stop. The position gain is set so that this lead commands exactly the joint's speed limit
+# (the engine's motor moves gain x error per step).
+CLOSE_LEAD_TIME = 1.0 / 60.0  # s
+
+
+@dataclass(frozen=True)
+class RollerJoints:
+    """A roller's spin joint, the pivot joint that turns it (None if it has none) and its radius."""
+
+    roll: int
+    pivot: int | None
+    radius: float
 
 
 class Hand:
@@ -40,6 +53,10 @@ class Hand:
         self.roll_j = [names[n] for n in model.roll_joints]
         info = [p.getJointInfo(self.body, j, physicsClientId=cid) for j in range(len(names))]
         self.limits = {j: (i[8], i[9], i[10], i[11]) for j, i in enumerate(info)}  # lower, upper, effort, speed
+        self._axis = {j: np.array(i[13]) for j, i in enumerate(info)}  # in the child link's frame
+        self._parent = {j: i[16] for j, i in enumerate(info)}
+        self._lead = np.array([self.limits[j][3] for j in self.close_j]).mean() * CLOSE_LEAD_TIME
+        self.rollers = [RollerJoints(roll, self._pivot_of(roll), model.roller_radius) for roll in self.roll_j]
         for link_name, surface in model.surfaces.items():
             if link_name in self.link_of:
                 world.set_surface(self.body, self.link_of[link_name], surface.friction, 0.0,
@@ -63,23 +80,54 @@ class Hand:
         self.world.p.changeConstraint(self.wrist, jointChildPivot=list(position), jointChildFrameOrientation=orientation,
                                       maxForce=self.wrist_force, physicsClientId=self.world.cid)
 
-    def _position(self, joints, targets, torque_scale=1.0):
+    def teleport(self, position, orientation=DOWN):
+        """Put the hand's frame at a pose at once, at rest (before the first step of a scene)."""
+        p, cid = self.world.p, self.world.cid
+        pos, orn = p.multiplyTransforms(position, orientation, *p.invertTransform(*self._frame_in_com))
+        p.resetBasePositionAndOrientation(self.body, pos, orn, physicsClientId=cid)
+        self.move_wrist(position, orientation)
+
+    def _position(self, joints, targets, torque_scale=1.0, gain=0.1):
         p = self.world.p
         for j, target in zip(joints, targets):
             lower, upper, effort, speed = self.limits[j]
             p.setJointMotorControl2(self.body, j, p.POSITION_CONTROL, targetPosition=float(np.clip(target, lower, upper)),
-                                    force=effort * torque_scale, maxVelocity=speed, physicsClientId=self.world.cid)
+                                    force=effort * torque_scale, maxVelocity=speed, positionGain=gain,
+                                    physicsClientId=self.world.cid)
 
     def close(self, fraction=1.0, torque_scale=1.0):
-        """Drive closing joints toward `fraction` of their range (1: fully closed), synchronised,
-        with their torque limit (times `torque_scale`). Call again each control step."""
+        """Drive closing joints toward `fraction` of their range (1: fully closed, 0: fully open),
+        synchronised, with their torque limit (times `torque_scale`). Call again each control step.
+        Driving toward 0 from a closed pose spreads the fingers with full torque (inside grasps)."""
         q = self.joint_positions(self.close_j)
-        lead = q.mean() - q + CLOSE_LEAD  # relative to each joint's own position
-        goal = [lo + fraction * (hi - lo) for lo, hi, *_ in (self.limits[j] for j in self.close_j)]
-        self._position(self.close_j, np.minimum(q + lead, goal), torque_scale)
+        goal = np.array([lo + fraction * (hi - lo) for lo, hi, *_ in (self.limits[j] for j in self.close_j)])
+        way = np.sign(goal - q.mean())
+        # each joint's target leads the mean position toward the goal, never past it
+        target = q.mean() + way * self._lead
+        target = np.where(way >= 0, np.minimum(target, goal), np.maximum(target, goal))
+        self.hold_closing(target, torque_scale)
+
+    def closing_time(self):
+        """Time (s) the slowest closing joint takes over its whole range at its speed limit."""
+        return max((hi - lo) / speed for lo, hi, _, speed in (self.limits[j] for j in self.close_j))
+
+    def clamp_targets(self, spreading=False):
+        """Targets that hold the closing joints against the object: where they are plus one lead
+        toward closed (toward open when `spreading`), so they press with full torque yet cannot
+        close more than the lead if the object moves (no wedging it deeper between the fingers)."""
+        return self.joint_positions(self.close_j) + (-self._lead if spreading else self._lead)
+
+    def hold_closing(self, targets, torque_scale=1.0):
+        self._position(self.close_j, targets, torque_scale, gain=self.world.settings.time_step / CLOSE_LEAD_TIME)
 
     def open(self):
         self._position(self.close_j, [self.limits[j][0] for j in self.close_j])
+
+    def reset_joints(self, fraction):
+        """Teleport closing joints to `fraction` of their range (before the first step only)."""
+        for j in self.close_j:
+            lo, hi, *_ = self.limits[j]
+            self.world.p.resetJointState(self.body, j, lo + fraction * (hi - lo), physicsClientId=self.world.cid)
 
     def set_pivots(self, angles):
         self._position(self.pivot_j, np.broadcast_to(angles, (len(self.pivot_j),)))
@@ -101,6 +149,42 @@ class Hand:
     def joint_speeds(self, joints):
         states = self.world.p.getJointStates(self.body, joints, physicsClientId=self.world.cid)
         return np.array([s[1] for s in states])
+
+    def joint_axis(self, joint):
+        """A joint's unit axis (3,) in the world frame (the axis is stated in its child link's frame)."""
+        orn = self.world.p.getLinkState(self.body, joint, physicsClientId=self.world.cid)[5]
+        return np.array(self.world.p.getMatrixFromQuaternion(orn)).reshape(3, 3) @ self._axis[joint]
+
+    def tip_links(self):
+        """Per closing joint, the link of its chain farthest from the palm (roller, pad, jaw)."""
+        depth = {}
+        for k in self.limits:  # deepest point of each link's collision box, along the hand axis
+            lo, hi = self.world.p.getAABB(self.body, k, physicsClientId=self.world.cid)
+            corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
+            depth[k] = self.to_hand(corners)[:, 2].max()
+        # ties (a pad flush with its jaw's end) go to the link further down the chain (higher index)
+        return [max((k for k in self.limits if self._descends(k, j)), key=lambda k: (round(depth[k], 4), k))
+                for j in self.close_j]
+
+    def _descends(self, link, joint):
+        while link != -1:
+            if link == joint:
+                return True
+            link = self._parent[link]
+        return False
+
+    def _pivot_of(self, roll_joint):
+        parent = self._parent[roll_joint]
+        while parent != -1:
+            if parent in self.pivot_j:
+                return parent
+            parent = self._parent[parent]
+        return None
+
+    def to_hand(self, x):
+        """World point(s) x (..., 3) in the hand frame."""
+        pos, rot = self.frame()
+        return (np.asarray(x) - pos) @ rot
 
     def frame(self):
         """Pose of the palm's URDF frame (the hand frame): position (3,), rotation matrix (3, 3)."""

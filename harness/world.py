@@ -106,8 +106,9 @@ class World:
         self.p.changeDynamics(body, link, lateralFriction=math.sqrt(friction), restitution=restitution,
                               rollingFriction=rolling, spinningFriction=spinning, physicsClientId=self.cid, **kw)
 
-    def add_table(self, size=(1.0, 1.0, 0.05), top=0.0, tilt=0.0, friction=None):
-        """A static box whose top face is at height `top` (m), tilted by `tilt` rad about the y axis."""
+    def add_table(self, size=(1.0, 1.0, 0.05), top=0.0, tilt=0.0, friction=None, rolling=0.0):
+        """A static box whose top face is at height `top` (m), tilted by `tilt` rad about the y axis;
+        `rolling` (m) is its rolling resistance arm (the engine scales it by sqrt(mu) of the other body)."""
         p = self.p
         half = [s / 2 for s in size]
         shape = p.createCollisionShape(p.GEOM_BOX, halfExtents=half, physicsClientId=self.cid)
@@ -116,7 +117,8 @@ class World:
         orn = p.getQuaternionFromEuler((0, tilt, 0))
         centre = np.array([0, 0, top]) - np.array(p.getMatrixFromQuaternion(orn)).reshape(3, 3)[:, 2] * half[2]
         self.table = p.createMultiBody(0, shape, visual, centre.tolist(), orn, physicsClientId=self.cid)
-        self.set_surface(self.table, -1, self.settings.table_friction if friction is None else friction)
+        self.set_surface(self.table, -1, self.settings.table_friction if friction is None else friction,
+                         rolling=rolling)
         p.changeDynamics(self.table, -1, frictionAnchor=1, physicsClientId=self.cid)
         return self.table
 

@@ -1,0 +1,101 @@
+"""Per-trial and per-phase metrics: slip, friction use, drift, and the checks that call a run invalid.
+
+Slip (see contact.py for how each contact's slip velocity is measured): at each sample the hand's
+links touching the object are taken one by one; a link's slip speed is the normal-force-weighted
+mean over its contact points (one patch of a pad reports up to four manifold points: summing them
+would count one sliding patch four times). The sample's slip speed is the largest link's, i.e. the
+worst contact. Slip distance is its integral over the time the object is touched, the peak is its
+maximum, and the slipping share is the part of the contact time above SLIP_NOISE_FLOOR.
+
+Friction use of a link is |sum of its friction forces| / (mu x sum of its normal forces): 1 means
+the contact is on the edge of its friction cone (sliding or about to). Mean over contact time and
+peak are reported, the largest link's value at each sample.
+
+Drift is the object's pose error against a reference, both in the hand frame: position (m) and the
+geodesic angle between orientations (rad).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["SlipTally", "pose_error", "blowup", "SLIP_NOISE_FLOOR", "MAX_SPEED", "MAX_DEPTH"]
+
+SLIP_NOISE_FLOOR = 1e-3  # m/s; a held object's solver jitter stays below 0.1 mm/s (measured), real slip is far above
+MAX_SPEED = 8.0  # m/s; nothing in a bench-top grasp moves this fast: a faster object means the solver blew up
+MAX_DEPTH = 0.005  # m of penetration beyond a soft contact's own give (force x compliance): a solver failure
+MIN_FRICTION_LOAD = 1e-6  # N; below this normal force a link's friction use is undefined (skipped)
+
+
+@dataclass
+class SlipTally:
+    """Accumulates slip and friction use over samples of one phase (or the whole trial)."""
+
+    slip_distance: float = 0.0  # m
+    slip_peak: float = 0.0  # m/s
+    contact_time: float = 0.0  # s
+    slipping_time: float = 0.0  # s
+    use_integral: float = 0.0  # friction use x s
+    use_peak: float = 0.0
+
+    def add(self, sample, friction_of_link, dt):
+        """One ContactSample of the object against the hand; `friction_of_link` maps link -> pair mu."""
+        if sample.count == 0:
+            return
+        speeds = sample.slip_speed()
+        worst_slip, worst_use = 0.0, 0.0
+        for link in np.unique(sample.links):
+            mask = sample.links == link
+            fn = sample.normal_force[mask]
+            total = fn.sum()
+            if total <= MIN_FRICTION_LOAD:
+                continue
+            worst_slip = max(worst_slip, float(fn @ speeds[mask] / total))
+            friction = np.linalg.norm(sample.friction_force[mask].sum(axis=0))
+            worst_use = max(worst_use, float(friction / (friction_of_link[int(link)] * total)))
+        self.slip_distance += worst_slip * dt
+        self.slip_peak = max(self.slip_peak, worst_slip)
+        self.contact_time += dt
+        self.slipping_time += dt if worst_slip > SLIP_NOISE_FLOOR else 0.0
+        self.use_integral += worst_use * dt
+        self.use_peak = max(self.use_peak, worst_use)
+
+    def columns(self, prefix=""):
+        """Flat columns in reporting units (mm, mm/s, shares)."""
+        t = self.contact_time
+        return {
+            f"{prefix}slip_mm": self.slip_distance * 1e3,
+            f"{prefix}slip_peak_mm_s": self.slip_peak * 1e3,
+            f"{prefix}slip_share": self.slipping_time / t if t > 0 else math.nan,
+            f"{prefix}friction_use_mean": self.use_integral / t if t > 0 else math.nan,
+            f"{prefix}friction_use_peak": self.use_peak if t > 0 else math.nan,
+        }
+
+
+def pose_error(position, rotation, ref_position, ref_rotation):
+    """(distance m, geodesic angle rad) between two poses given as position (3,) and matrix (3, 3)."""
+    distance = float(np.linalg.norm(np.asarray(position) - ref_position))
+    relative = np.asarray(ref_rotation).T @ rotation
+    # geodesic angle on SO(3): theta = acos((trace R - 1) / 2), clipped against round-off
+    angle = math.acos(float(np.clip((np.trace(relative) - 1.0) / 2.0, -1.0, 1.0)))
+    return distance, angle
+
+
+def blowup(position, velocity, spin, depth, extents):
+    """Why the simulation of the object is not to be trusted, or None.
+
+    NaN or infinite state; a speed above MAX_SPEED (an energy jump: a grasp cannot throw things
+    that fast); a contact whose `depth` (penetration beyond its compliant give, m) exceeds
+    MAX_DEPTH or half the object's smallest size."""
+    state = np.concatenate([position, velocity, spin])
+    if not np.all(np.isfinite(state)):
+        return "non-finite object state"
+    speed = float(np.linalg.norm(velocity)) + float(np.linalg.norm(spin)) * max(extents) / 2
+    if speed > MAX_SPEED:
+        return f"energy jump: object surface moving at {speed:.3g} m/s"
+    if len(depth) and depth.max() > min(MAX_DEPTH, min(extents) / 2):
+        return f"deep interpenetration: {depth.max() * 1e3:.3g} mm"
+    return None

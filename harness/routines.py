@@ -1,0 +1,490 @@
+"""Routines: scripted sequences of phases run on one gripper and one object.
+
+A phase is a function `phase(ctx, params, log) -> bool` that drives the hand through a
+TrialContext for a while and says whether its own goal was met; `log` (a PhaseLog) takes its
+drift and a note. A routine is a name, a parameter section (declared with `fields.param`, so a
+campaign file is validated like a spec) and a tuple of phases, each with what a failure of that
+phase means for the trial's outcome:
+
+- GRASP phases (approach, close, draw-in, spread): failing means the object was `missed`.
+- HOLD phases (lift, hold, shake, pivot, roll, shift): failing with the object still held means the
+  manoeuvre `stalled`; losing the object means `dropped`, or `ejected` when it left the hand faster
+  than trial.EJECT_SPEED.
+- release: failing (the object sticks to the hand) is `stalled`.
+
+Register a routine by adding it to ROUTINES (see DEVELOPERS.md).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.spatial.transform import Rotation
+
+from .errors import HarnessError
+from .fields import Problems, param, parse
+from .metrics import SlipTally
+from .steering import RollerContact, steer
+from .trial import APPROACH_CLEARANCE, EJECT_SPEED, drift_of
+
+__all__ = ["ROUTINES", "Routine", "make_routine", "describe"]
+
+GRASP, HOLD, RELEASE = "grasp", "hold", "release"
+LOSS_TIME = 0.1  # s without any touch after the grasp: the object is gone
+STILL_SPEED = 0.002  # m/s (or rad/s for joints); below this a closing or drawing motion has stopped
+PUSH_LIMIT = 0.005  # m; an approach that shoves the object further than this missed it
+GAIN = 4.0  # 1/s; pose feedback of closed-loop steering (a quarter-second time constant)
+SETTLE = 0.2  # s after a steered manoeuvre, rollers stopped, before its drift is read
+
+
+def smooth(s):
+    """Smoothstep 0..1 (zero speed at both ends)."""
+    s = min(max(s, 0.0), 1.0)
+    return s * s * (3 - 2 * s)
+
+
+# --- parameters ----------------------------------------------------------------------------
+
+@dataclass(frozen=True, kw_only=True)
+class Params:
+    """Parameters every routine takes (SI in code; the file's unit is in the key)."""
+
+    approach_s: float = param("approach_s", gt=0, default=0.4)
+    grip_height: float = param("grip_height", gt=0, le=1, default=0.5,
+                               doc="where the fingertips meet the object, as a share of its height")
+    grip_torque: float = param("grip_torque", gt=0, le=1, default=1.0, doc="share of the closing motors' limit")
+    close_s: float = param("close_s", gt=0, default=None,
+                           doc="longest closing time; default: the fingers' full travel time plus 0.3 s")
+    lift: float = param("lift_mm", unit="mm", gt=0, default=0.06)
+    lift_s: float = param("lift_s", gt=0, default=0.6)
+    hold_s: float = param("hold_s", gt=0, default=1.0)
+
+
+@dataclass(frozen=True, kw_only=True)
+class DrawInParams(Params):
+    draw_speed: float = param("draw_speed", gt=0, le=1, default=0.6, doc="share of the roller speed limit")
+    draw_s: float = param("draw_s", gt=0, default=1.5, doc="longest draw-in time")
+
+
+@dataclass(frozen=True, kw_only=True)
+class RollParams(DrawInParams):
+    axis: tuple = param("axis", "numbers", length=(3, 3), default=(0.0, 0.0, 1.0), doc="in the hand frame")
+    angle: float = param("angle_deg", unit="deg", gt=0, default=math.pi / 2)
+    speed: float = param("speed_deg_s", unit="deg", gt=0, default=math.pi / 2)
+    tolerance: float = param("tolerance_deg", unit="deg", gt=0, default=math.radians(10))
+
+    def check(self):
+        if np.linalg.norm(self.axis) < 1e-9:
+            yield "axis", "must not be the zero vector"
+
+
+@dataclass(frozen=True, kw_only=True)
+class PivotRollParams(RollParams):
+    pivot: float = param("pivot_deg", unit="deg", default=math.pi / 4, doc="roller pivot angle before rolling")
+    pivot_s: float = param("pivot_s", gt=0, default=0.5)
+
+
+@dataclass(frozen=True, kw_only=True)
+class ShiftParams(DrawInParams):
+    direction: tuple = param("direction", "numbers", length=(3, 3), default=(0.0, 0.0, -1.0), doc="in the hand frame")
+    distance: float = param("distance_mm", unit="mm", gt=0, default=0.008)
+    speed: float = param("speed_mm_s", unit="mm", gt=0, default=0.01)
+    tolerance: float = param("tolerance_mm", unit="mm", gt=0, default=0.003)
+
+    def check(self):
+        if np.linalg.norm(self.direction) < 1e-9:
+            yield "direction", "must not be the zero vector"
+
+
+@dataclass(frozen=True, kw_only=True)
+class ShakeParams(DrawInParams):
+    accel: float = param("accel_g", gt=0, le=10, default=1.0, doc="peak wrist acceleration in g")
+    frequency: float = param("frequency_hz", gt=0, le=50, default=4.0)
+    tilt: float = param("tilt_deg", unit="deg", ge=0, le=math.pi / 2, default=math.radians(20),
+                        doc="swing of the gravity direction")
+    shake_s: float = param("shake_s", gt=0, default=1.5)
+
+
+# --- phases --------------------------------------------------------------------------------
+
+def _outside_target(ctx, p):
+    return ctx.wrist_for_grip_height(p.grip_height * ctx.object_top())
+
+
+def _inside_target(ctx, p):
+    """Fingers pre-closed until the tips fit the cavity, tips' centre halfway down the cavity."""
+    bore = cavity_radius(ctx.instance)
+    for fraction in np.linspace(0.0, 1.0, 41):
+        ctx.hand.reset_joints(fraction)
+        if _tip_radius(ctx) < bore - 0.002:
+            break
+    ctx.preshape = float(fraction)
+    top = ctx.object_top()
+    floor = top - ctx.instance.draws.get("height", 0.0) + ctx.instance.draws.get("base", 0.0)
+    return ctx.wrist_for_grip_height((top + floor) / 2)
+
+
+def _tip_radius(ctx):
+    """Largest distance of any tip's collision box from the hand axis (m)."""
+    p, cid, r = ctx.world.p, ctx.world.cid, 0.0
+    for link in ctx.tips:
+        lo, hi = p.getAABB(ctx.hand.body, link, physicsClientId=cid)
+        corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
+        r = max(r, float(np.linalg.norm(ctx.hand.to_hand(corners)[:, :2], axis=1).max()))
+    return r
+
+
+def cavity_radius(instance):
+    d = instance.draws
+    return d["inner_radius"] if instance.kind == "ring" else d["outer_radius"] - d["wall"]
+
+
+def approach(ctx, p, log, target=_outside_target):
+    """Come down from above onto the grasp pose, fingers open (or pre-shaped)."""
+    goal = target(ctx, p)
+    start = goal + [0.0, 0.0, APPROACH_CLEARANCE]
+    ctx.hand.teleport(start, ctx.wrist_orientation)
+    ctx.grip = (ctx.preshape, p.grip_torque) if ctx.preshape else None
+    ctx.wrist_goal = goal
+    ctx.run(p.approach_s, lambda t: ctx.move_wrist(start + (goal - start) * smooth(t / p.approach_s)))
+    ctx.run(0.05)  # let the wrist arrive
+    pushed = float(np.linalg.norm(ctx.world.pose(ctx.obj)[0][:2] - ctx.rest_position[:2]))
+    log.note = f"object pushed {pushed * 1e3:.1f} mm"
+    return pushed < PUSH_LIMIT
+
+
+def _closing(ctx, p, log, fraction):
+    ctx.grip = (fraction, p.grip_torque)
+    still = [0.0]
+
+    def settled(t):
+        speeds = np.abs(ctx.hand.joint_speeds(ctx.hand.close_j))
+        still[0] = still[0] + ctx.world.settings.time_step if speeds.max() < STILL_SPEED * 10 else 0.0
+        return t > 0.15 and still[0] > 0.1 and ctx.tips_touching() >= 2
+
+    ctx.run(p.close_s or ctx.hand.closing_time() + 0.3, settled)
+    ctx.watch_grasp()
+    log.note = f"{ctx.tips_touching()} fingertips touching"
+    return ctx.tips_touching() >= 2
+
+
+def close(ctx, p, log):
+    """Close the fingers with the chosen share of their torque until they stop on the object."""
+    return _closing(ctx, p, log, 1.0)
+
+
+def spread(ctx, p, log):
+    """Open the pre-shaped fingers against the inside wall."""
+    return _closing(ctx, p, log, 0.0)
+
+
+def draw_in(ctx, p, log):
+    """Counter-rotate the rollers so their contact surfaces pull the object up into the hand,
+    until it is seated (touches a link other than a roller), stops rising, or the time is up."""
+    limit = np.array([ctx.hand.limits[j][3] for j in ctx.hand.roll_j])
+    ctx.set_rollers(p.draw_speed * limit)
+    start_depth = ctx.object_in_hand()[0][2]
+    still = [0.0, start_depth]
+
+    rollers = {r.roll for r in ctx.hand.rollers}
+
+    def stopped(t):
+        ctx.watch_grasp()
+        if ctx.touching_links() - rollers:
+            return True  # seated against the palm or a finger
+        depth = ctx.object_in_hand()[0][2]
+        dt = ctx.world.settings.time_step
+        still[0] = still[0] + dt if (still[1] - depth) / dt < STILL_SPEED else 0.0
+        still[1] = depth
+        return t > 0.2 and still[0] > 0.1
+
+    ctx.run(p.draw_s, stopped)
+    ctx.set_rollers(0.0)
+    rise = start_depth - ctx.object_in_hand()[0][2]
+    log.note = f"drawn in {rise * 1e3:.1f} mm"
+    return ctx.held()
+
+
+def _watch_loss(ctx, extra=None):
+    """A per-step check that stops a holding phase once the object has left the hand."""
+    lost = [0.0]
+    dt = ctx.world.settings.time_step
+
+    def check(t):
+        ctx.watch_grasp()
+        if ctx.last is not None and ctx.last.count:
+            lost[0] = 0.0
+        else:
+            if lost[0] == 0.0:
+                ctx.loss_speed = ctx.relative_speed()
+            lost[0] += dt
+        if lost[0] > LOSS_TIME:
+            return True
+        return extra(t) if extra else False
+
+    return check
+
+
+def lift(ctx, p, log):
+    """Clamp the fingers where they are (the grasp instant) and raise the wrist; rollers braked."""
+    ctx.record_grasp()
+    ctx.clamp = ctx.hand.clamp_targets(spreading=ctx.grip[0] < ctx.preshape)
+    start = ctx.wrist_goal.copy()
+    ctx.wrist_goal = start + [0.0, 0.0, p.lift]
+    ctx.run(p.lift_s, _watch_loss(ctx, lambda t: ctx.move_wrist(start + [0, 0, p.lift * smooth(t / p.lift_s)])))
+    ctx.run(0.1, _watch_loss(ctx))
+    risen = ctx.world.pose(ctx.obj)[0][2] - ctx.rest_position[2]
+    log.note = f"object raised {risen * 1e3:.1f} mm"
+    return ctx.held() and risen > 0.5 * p.lift
+
+
+def hold(ctx, p, log):
+    """Keep still; drift against the pose in the hand at the start of the hold."""
+    ref = ctx.object_in_hand()
+    ctx.run(p.hold_s, _watch_loss(ctx))
+    log.drift = drift_of(ctx, ref)
+    return ctx.held()
+
+
+def shake(ctx, p, log):
+    """Move the wrist on a horizontal circle with constant acceleration and swing gravity's direction."""
+    ref = ctx.object_in_hand()
+    centre = ctx.wrist_goal
+    w = 2 * math.pi * p.frequency
+    radius = p.accel * ctx.world.settings.gravity / w ** 2
+    g = ctx.world.settings.gravity
+    ramp = 1.0 / p.frequency  # one period to spin up, so the wrist does not start with a jerk
+
+    def move(t):
+        a = min(t / ramp, 1.0)
+        ctx.move_wrist(centre + radius * a * np.array([math.cos(w * t) - 1, math.sin(w * t), 0.0]))
+        tilt = p.tilt * math.sin(w * t / 4)
+        ctx.world.p.setGravity(0, g * math.sin(tilt), -g * math.cos(tilt), physicsClientId=ctx.world.cid)
+
+    try:
+        ctx.run(p.shake_s, _watch_loss(ctx, move))
+    finally:
+        ctx.world.p.setGravity(0, 0, -g, physicsClientId=ctx.world.cid)
+    ctx.move_wrist(centre)
+    ctx.run(0.2, _watch_loss(ctx))
+    log.drift = drift_of(ctx, ref)
+    return ctx.held()
+
+
+def roller_contacts(ctx):
+    """The hand's rollers now touching the object, as steering.RollerContact (world frame)."""
+    sample, hand, out = ctx.last, ctx.hand, []
+    for roller in hand.rollers:
+        mask = sample.links == roller.roll
+        if not mask.any():
+            continue
+        fn = sample.normal_force[mask]
+        point = fn @ sample.points[mask] / fn.sum()
+        normal = fn @ sample.normals[mask]
+        centre = ctx.world.link_state(hand.body, roller.roll)[0]
+        pivot_kw = {}
+        if roller.pivot is not None:
+            lo, hi = hand.limits[roller.pivot][:2]
+            pivot_kw = {"pivot_axis": hand.joint_axis(roller.pivot), "pivot_range": (lo, hi),
+                        "pivot_angle": float(hand.joint_positions([roller.pivot])[0])}
+        else:
+            pivot_kw = {"pivot_range": (0.0, 0.0)}
+        out.append((roller, RollerContact(point, normal, centre, hand.joint_axis(roller.roll), roller.radius, **pivot_kw)))
+    return out
+
+
+def _steer_towards(ctx, reference, feedforward, steer_pivots=True):
+    """Set rollers (and pivots) for the hand-frame twist `feedforward` (v, w) plus pose feedback
+    toward `reference` = (position, rotation) in the hand frame; returns the residual norm."""
+    found = roller_contacts(ctx)
+    if len(found) < 2:
+        ctx.set_rollers(0.0)
+        return math.nan
+    pos, rot = ctx.object_in_hand()
+    _, hand_rot = ctx.hand.frame()
+    v = feedforward[:3] + GAIN * (reference[0] - pos)
+    w = feedforward[3:] + GAIN * Rotation.from_matrix(reference[1] @ rot.T).as_rotvec()
+    twist = np.concatenate([hand_rot @ v, hand_rot @ w])
+    result = steer(twist, ctx.world.pose(ctx.obj)[0], [c for _, c in found], ctx.size / 2, steer_pivots)
+    speeds = np.zeros(len(ctx.hand.rollers))
+    pivots = ctx.pivot_cmd.copy()
+    for (roller, _), speed, angle in zip(found, result.speeds, result.pivot_angles):
+        i = ctx.hand.rollers.index(roller)
+        speeds[i] = speed
+        if roller.pivot is not None:
+            pivots[ctx.hand.pivot_j.index(roller.pivot)] = angle
+    ctx.set_rollers(speeds)
+    ctx.set_pivots(pivots)
+    return result.residual_norm
+
+
+def _steered(ctx, p, log, axis, rate, duration, moves):
+    """Run a steered manoeuvre: `moves(t)` gives the reference motion in the hand frame as
+    (displacement (3,), rotation vector (3,)); feedforward is its rate."""
+    pos0, rot0 = ctx.object_in_hand()
+    residuals = []
+
+    def reference(t):
+        shift, turn = moves(min(t, duration))
+        return pos0 + shift, Rotation.from_rotvec(turn).as_matrix() @ rot0
+
+    spin = [0.0]
+    dt = ctx.world.settings.time_step
+
+    def control(t):
+        ff = rate if t < duration else np.zeros(6)
+        residuals.append(_steer_towards(ctx, reference(t), ff))
+        _, w_obj = ctx.world.velocity(ctx.obj)
+        _, w_hand = ctx.world.velocity(ctx.hand.body)
+        spin[0] += float((w_obj - w_hand) @ (ctx.hand.frame()[1] @ axis)) * dt
+        return False
+
+    ctx.run(duration + SETTLE, _watch_loss(ctx, control))
+    ctx.set_rollers(0.0)
+    log.drift = drift_of(ctx, reference(duration))
+    finite = [r for r in residuals if math.isfinite(r)]
+    ctx.residual = max(finite) if finite else math.nan
+    return spin[0]
+
+
+def roll(ctx, p, log):
+    """Turn the held object about `axis` (hand frame) by `angle` with the rollers alone, closed-loop."""
+    axis = np.asarray(p.axis, dtype=float) / np.linalg.norm(p.axis)
+    duration = p.angle / p.speed
+    turned = _steered(ctx, p, log, axis, np.concatenate([np.zeros(3), axis * p.speed]), duration,
+                      lambda t: (np.zeros(3), axis * p.speed * t))
+    ctx.rotation = (turned, p.angle)
+    log.note = f"turned {math.degrees(turned):.1f} of {math.degrees(p.angle):.1f} deg"
+    return ctx.held() and abs(turned - p.angle) <= p.tolerance
+
+
+def shift(ctx, p, log):
+    """Translate the held object along `direction` (hand frame) within the grasp, closed-loop."""
+    direction = np.asarray(p.direction, dtype=float) / np.linalg.norm(p.direction)
+    start = ctx.object_in_hand()[0]
+    duration = p.distance / p.speed
+    _steered(ctx, p, log, np.zeros(3), np.concatenate([direction * p.speed, np.zeros(3)]), duration,
+             lambda t: (direction * p.speed * t, np.zeros(3)))
+    moved = float((ctx.object_in_hand()[0] - start) @ direction)
+    ctx.shifted = (moved, p.distance)
+    log.note = f"moved {moved * 1e3:.1f} of {p.distance * 1e3:.1f} mm"
+    return ctx.held() and abs(moved - p.distance) <= p.tolerance
+
+
+def pivot(ctx, p, log):
+    """Turn every roller's pivot to `pivot` while holding (rollers braked)."""
+    ref = ctx.object_in_hand()
+    start = ctx.pivot_cmd.copy()
+    ctx.run(p.pivot_s, _watch_loss(ctx, lambda t: ctx.set_pivots(start + (p.pivot - start) * smooth(t / p.pivot_s))))
+    ctx.run(SETTLE, _watch_loss(ctx))
+    log.drift = drift_of(ctx, ref)
+    return ctx.held()
+
+
+def release(ctx, p, log):
+    """Open the fingers, rollers stopped; the object should come free."""
+    ctx.grip, ctx.clamp = None, None
+    ctx.set_rollers(0.0)
+    ctx.run(0.5)
+    return ctx.last.count == 0
+
+
+# --- routines ------------------------------------------------------------------------------
+
+def _inside_approach(ctx, p, log):
+    return approach(ctx, p, log, _inside_target)
+
+
+_inside_approach.__name__ = "approach"
+
+
+@dataclass(frozen=True)
+class Routine:
+    name: str
+    params: Params
+    phases: tuple  # ((phase function, GRASP | HOLD | RELEASE), ...)
+    needs: str  # "rollers", "cavity" or "" (any gripper and object)
+
+    def unsuitable(self, model, instance):
+        """Why this routine cannot run on this gripper / object, or None."""
+        if self.needs == "rollers" and not model.roll_joints:
+            return f"needs driven rollers; the {model.family} family has none (use pinch-lift)"
+        if self.needs == "cavity" and instance.kind not in ("ring", "cup"):
+            return f"needs a ring or a cup to hold from inside; {instance.name} is a {instance.kind}"
+        return None
+
+    def labels(self):
+        return [phase.__name__.replace("_", "-") for phase, _ in self.phases]
+
+    def run(self, ctx):
+        """Run the phases in order; returns (outcome, reason). Stops at the first failed phase."""
+        for (phase, kind), label in zip(self.phases, self.labels()):
+            log = ctx.begin(label)
+            log.ok = bool(phase(ctx, self.params, log))
+            if not log.ok:
+                return _failure(ctx, kind), f"{label} failed" + (f": {log.note}" if log.note else "")
+        return "held", ""
+
+
+def _failure(ctx, kind):
+    if kind == GRASP:
+        return "missed"
+    if ctx.held() or kind == RELEASE:
+        return "stalled"
+    return "ejected" if ctx.loss_speed > EJECT_SPEED else "dropped"
+
+
+_GRASPED = ((approach, GRASP), (close, GRASP), (draw_in, GRASP), (lift, HOLD))
+ROUTINES = {
+    "draw-in-grasp": (DrawInParams, (*_GRASPED, (hold, HOLD)), "rollers"),
+    "pinch-lift": (Params, ((approach, GRASP), (close, GRASP), (lift, HOLD), (hold, HOLD)), ""),
+    "roll": (RollParams, (*_GRASPED, (roll, HOLD), (hold, HOLD)), "rollers"),
+    "pivot-and-roll": (PivotRollParams, (*_GRASPED, (pivot, HOLD), (roll, HOLD), (hold, HOLD)), "rollers"),
+    "shift": (ShiftParams, (*_GRASPED, (shift, HOLD), (hold, HOLD)), "rollers"),
+    "hold-under-shake": (ShakeParams, (*_GRASPED, (shake, HOLD)), "rollers"),
+    "inside-grasp": (Params, ((_inside_approach, GRASP), (spread, GRASP), (lift, HOLD), (hold, HOLD)), "cavity"),
+}
+
+
+def make_routine(name, table=None, file="<routine>", prefix=""):
+    """A Routine from its registered name and a table of parameters (file units); SpecError on bad input."""
+    problems = Problems(file)
+    if name not in ROUTINES:
+        problems.add(prefix or "routine", f"must be one of {', '.join(ROUTINES)}; got {name!r}")
+        problems.raise_if_any()
+    cls, phases, needs = ROUTINES[name]
+    params = parse(cls, table or {}, problems, prefix)
+    problems.raise_if_any()
+    return Routine(name, params, phases, needs)
+
+
+def describe(ctx, routine, outcome, reason):
+    """The trial's flat row: outcome, whole-trial metrics and each phase's own columns."""
+    drifts = [log.drift for log in ctx.phases if log.drift is not None]
+    quality = ctx.grasp_quality
+    row = {
+        "routine": routine.name, "outcome": outcome, "success": outcome == "held", "reason": reason,
+        "failed_phase": next((log.label for log in ctx.phases if log.ok is False), ""),
+        **ctx.total.columns(),
+        "drift_mm": max((d[0] for d in drifts), default=math.nan) * 1e3,
+        "drift_deg": math.degrees(max((d[1] for d in drifts), default=math.nan)),
+        "rotation_deg": math.degrees(ctx.rotation[0]), "rotation_cmd_deg": math.degrees(ctx.rotation[1]),
+        "shift_mm": ctx.shifted[0] * 1e3, "shift_cmd_mm": ctx.shifted[1] * 1e3,
+        "steer_residual": ctx.residual,
+        "epsilon": quality.epsilon if quality else math.nan,
+        "force_closure": bool(quality.force_closure) if quality else False,
+        "contacts": quality.n_contacts if quality else 0,
+        "time_to_grasp_s": ctx.grasp_time, "sim_s": ctx.world.time, "steps": ctx.steps,
+    }
+    logs = {log.label: log for log in ctx.phases}
+    for label in routine.labels():
+        log = logs.get(label)
+        tally = log.tally if log else SlipTally()
+        drift = log.drift if log and log.drift else (math.nan, math.nan)
+        row[f"{label}_ok"] = bool(log and log.ok)
+        row[f"{label}_slip_mm"] = tally.columns()["slip_mm"] if log else math.nan
+        row[f"{label}_drift_mm"] = drift[0] * 1e3
+        row[f"{label}_drift_deg"] = math.degrees(drift[1])
+    return row

@@ -1,0 +1,313 @@
+"""One trial: a gripper variant, an object instance, a routine and a perturbation draw, run from a
+seed in a fresh world, returned as one flat row of metrics.
+
+The scene: a table whose top is at z = 0; the object resting on it (stable side down, nudged and
+turned by the perturbation, settled); the hand pointing down above it, fingers open, its wrist
+driven like an arm's flange (hand.py). Every control input goes through `TrialContext`, which
+applies the actuator perturbations (a first-order lag on roller and pivot commands, a per-roller
+speed error) and samples the metrics after every physics step.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from .contact import sample_contacts
+from .errors import HarnessError
+from .hand import DOWN, Hand
+from .metrics import SlipTally, blowup, pose_error
+from .quality import grasp_quality
+from .seeds import rng_for
+from .world import PhysicsSettings, World, add_object, pair_friction
+
+__all__ = ["Perturbation", "TrialContext", "Blowup", "run_trial", "OUTCOMES"]
+
+OUTCOMES = ("held", "dropped", "missed", "ejected", "stalled", "invalid", "error", "timeout")
+# kinds generated with a flat base stand on it; round ones lie with their smallest size vertical
+STANDING_KINDS = {"cylinder", "box", "plate", "disc", "ring", "cup", "polytope", "mesh", "urdf-folder"}
+SETTLE_TIME = 0.5  # s; longest wait for the object to come to rest on the table
+REST_SPEED = 1e-3  # m/s; the object counts as resting below this
+APPROACH_CLEARANCE = 0.04  # m; the hand starts this far above its grasp pose
+TABLE_CLEARANCE = 0.003  # m; lowest gap between a fingertip and the table at the grasp pose
+# Rolling resistance of the bench (arm, m): a plastic tube on a laminate bench has a rolling
+# resistance coefficient of a few thousandths (recalled from memory), about 5e-5 m for a 10 mm
+# tube; without it a round object set down lying keeps rolling from the smallest disturbance.
+TABLE_ROLLING = 5e-5
+EJECT_SPEED = 0.5  # m/s; an object leaving the hand faster than this was thrown, not dropped
+
+
+class Blowup(HarnessError):
+    """The simulation became untrustworthy (see metrics.blowup); the trial is `invalid`."""
+
+
+@dataclass(frozen=True)
+class Perturbation:
+    """One draw of realistic variation; SI units (m, rad, s); the zero draw is the nominal trial."""
+
+    object_dx: float = 0.0
+    object_dy: float = 0.0
+    object_yaw: float = 0.0
+    friction_scale: float = 1.0
+    mass_scale: float = 1.0
+    wrist_dx: float = 0.0
+    wrist_dy: float = 0.0
+    wrist_dz: float = 0.0
+    wrist_tilt: float = 0.0  # about the hand's x axis
+    actuator_lag: float = 0.0  # time constant of roller and pivot responses
+    speed_noise: float = 0.0  # each roller's speed is off by a factor drawn in 1 +- this (from the seed)
+
+    def columns(self):
+        units = {"object_dx": 1e3, "object_dy": 1e3, "wrist_dx": 1e3, "wrist_dy": 1e3, "wrist_dz": 1e3,
+                 "object_yaw": 180 / math.pi, "wrist_tilt": 180 / math.pi}
+        suffix = {1e3: "_mm", 180 / math.pi: "_deg"}
+        return {f"pert_{k}{suffix.get(units.get(k), '')}": v * units.get(k, 1.0) for k, v in asdict(self).items()}
+
+
+@dataclass
+class PhaseLog:
+    """What a phase left for the row: its own slip tally, drift and success."""
+
+    label: str
+    tally: SlipTally = field(default_factory=SlipTally)
+    ok: bool | None = None
+    drift: tuple[float, float] | None = None  # (m, rad) against the phase's reference
+    note: str = ""
+
+
+class TrialContext:
+    """The running trial: world, hand, object, control state and metric tallies."""
+
+    def __init__(self, world: World, model, instance, perturbation: Perturbation, seed: int):
+        self.world, self.model, self.instance, self.pert = world, model, instance, perturbation
+        self.rng = rng_for(seed, "trial")
+        world.add_table(size=(0.8, 0.8, 0.05), rolling=TABLE_ROLLING)
+        self.obj = self._place_object()
+        self.rest_position, _ = world.pose(self.obj)
+        self.size = max(instance.extents)
+        self.wrist_orientation = world.p.getQuaternionFromEuler((perturbation.wrist_tilt, 0, 0))
+        self.wrist_orientation = world.p.multiplyTransforms((0, 0, 0), DOWN, (0, 0, 0), self.wrist_orientation)[1]
+        self.hand = Hand(world, model, (0, 0, 1.0), self.wrist_orientation)
+        self.hand.reset_joints(0.0)
+        self.tips = self.hand.tip_links()
+        self.friction_of_link = {link: pair_friction(surface.friction, instance.friction * perturbation.friction_scale)
+                                 for name, surface in model.surfaces.items()
+                                 for link in [self.hand.link_of.get(name)] if link is not None}
+        default = pair_friction(1.0, instance.friction * perturbation.friction_scale)
+        self.friction_of_link.update({k: default for k in self.hand.link_of.values() if k not in self.friction_of_link})
+        # contact compliance (m/N) of each hand link against this object: soft contacts sink by
+        # force x compliance, which is no penetration error
+        soft = 1.0 / instance.stiffness if instance.stiffness else 0.0
+        self.compliance = np.zeros(max(self.hand.link_of.values()) + 2)  # indexed by link + 1
+        for name, surface in model.surfaces.items():
+            if name in self.hand.link_of and surface.stiffness:
+                self.compliance[self.hand.link_of[name] + 1] = 1.0 / surface.stiffness
+        self.compliance += soft
+        n = len(self.hand.rollers)
+        self.speed_factor = 1.0 + perturbation.speed_noise * self.rng.uniform(-1.0, 1.0, n)
+        self.roller_cmd, self.roller_out = np.zeros(n), np.zeros(n)
+        self.pivot_cmd = np.zeros(len(self.hand.pivot_j))
+        self.pivot_out = self.pivot_cmd.copy()
+        self.grip = None  # (fraction, torque_scale) while the fingers are driven
+        self.clamp = None  # fixed closing-joint targets once the grasp is formed (Hand.clamp_targets)
+        self.total = SlipTally()
+        self.phases: list[PhaseLog] = []
+        self.last = None  # latest ContactSample of the object against the hand
+        self.grasp_time = math.nan  # first time the object was held (s from the approach's start)
+        self.grasp_quality = None  # GraspQuality at the grasp instant (when the lift starts)
+        self.steps = 0
+        # left by the phases for the row
+        self.preshape = 0.0  # closing fraction the fingers are pre-shaped to (inside grasps)
+        self.wrist_goal = None  # current wrist target (m, world)
+        self.loss_speed = 0.0  # object's speed relative to the hand when it was last touched
+        self.rotation = (math.nan, math.nan)  # (achieved, commanded) rad about the roll axis
+        self.shifted = (math.nan, math.nan)  # (achieved, commanded) m along the shift direction
+        self.residual = math.nan  # largest steering residual norm during a steered phase (m/s)
+
+    # --- scene -----------------------------------------------------------------------------
+
+    def _place_object(self):
+        inst, pert, w = self.instance, self.pert, self.world
+        tilt = (0.0, 0.0, 0.0)
+        if inst.kind not in STANDING_KINDS:  # smallest size vertical
+            axis = int(np.argmin(inst.extents))
+            tilt = [(0.0, math.pi / 2, 0.0), (math.pi / 2, 0.0, 0.0), (0.0, 0.0, 0.0)][axis]
+        lay = w.p.getQuaternionFromEuler(tilt)
+        yaw = w.p.getQuaternionFromEuler((0.0, 0.0, pert.object_yaw))
+        orn = w.p.multiplyTransforms((0, 0, 0), yaw, (0, 0, 0), lay)[1]
+        body = add_object(w, inst, (pert.object_dx, pert.object_dy, 0.5), orn,
+                          friction_scale=pert.friction_scale, mass_scale=pert.mass_scale)
+        low = w.p.getAABB(body, -1, physicsClientId=w.cid)[0][2]
+        w.p.resetBasePositionAndOrientation(body, (pert.object_dx, pert.object_dy, 0.5 - low + 2e-4), orn,
+                                            physicsClientId=w.cid)
+        for _ in range(int(SETTLE_TIME / w.settings.time_step)):
+            w.step()
+            v, spin = w.velocity(body)
+            if np.linalg.norm(v) + np.linalg.norm(spin) * max(inst.extents) / 2 < REST_SPEED and w.time > 0.05:
+                break
+        w.time = 0.0  # trial time starts when the scene is ready
+        return body
+
+    def object_top(self):
+        return self.world.p.getAABB(self.obj, -1, physicsClientId=self.world.cid)[1][2]
+
+    def tip_span(self):
+        """(depth of the tips' centre below the palm, depth of their lowest point) in the hand frame, m."""
+        p, cid = self.world.p, self.world.cid
+        centres, lows = [], []
+        for link in self.tips:
+            lo, hi = p.getAABB(self.hand.body, link, physicsClientId=cid)
+            corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
+            local = self.hand.to_hand(corners)
+            centres.append(local[:, 2].mean())
+            lows.append(local[:, 2].max())
+        return float(np.mean(centres)), float(np.max(lows))
+
+    def wrist_for_grip_height(self, grip_height):
+        """World wrist position that puts the tips' centre at `grip_height` over the object, keeping
+        the tips TABLE_CLEARANCE above the table; wrist pose error included."""
+        centre, low = self.tip_span()
+        z = max(grip_height + centre, low + TABLE_CLEARANCE)
+        x, y = self.rest_position[:2]
+        return np.array([x + self.pert.wrist_dx, y + self.pert.wrist_dy, z + self.pert.wrist_dz])
+
+    # --- control ---------------------------------------------------------------------------
+
+    def move_wrist(self, position):
+        self.hand.move_wrist(position, self.wrist_orientation)
+
+    def set_rollers(self, speeds):
+        self.roller_cmd = np.broadcast_to(np.asarray(speeds, dtype=float), self.roller_cmd.shape).copy()
+
+    def set_pivots(self, angles):
+        self.pivot_cmd = np.broadcast_to(np.asarray(angles, dtype=float), self.pivot_cmd.shape).copy()
+
+    def _actuate(self):
+        dt = self.world.settings.time_step
+        gain = 1.0 if self.pert.actuator_lag <= 0 else 1.0 - math.exp(-dt / self.pert.actuator_lag)
+        self.roller_out += gain * (self.roller_cmd * self.speed_factor - self.roller_out)
+        self.pivot_out += gain * (self.pivot_cmd - self.pivot_out)
+        if len(self.roller_out):
+            self.hand.set_rollers(self.roller_out)
+        if len(self.pivot_out):
+            self.hand.set_pivots(self.pivot_out)
+        if self.grip is None:
+            self.hand.open()
+        elif self.clamp is not None:
+            self.hand.hold_closing(self.clamp, self.grip[1])
+        else:
+            self.hand.close(*self.grip)
+
+    def step(self):
+        """One control tick and physics step, then the metric sample and the sanity check."""
+        self._actuate()
+        self.world.step()
+        self.steps += 1
+        w = self.world
+        self.last = sample_contacts(w, self.obj, self.hand.body)
+        dt = w.settings.time_step
+        self.total.add(self.last, self.friction_of_link, dt)
+        if self.phases:
+            self.phases[-1].tally.add(self.last, self.friction_of_link, dt)
+        pos, _ = w.pose(self.obj)
+        v, spin = w.velocity(self.obj)
+        excess = self.last.depth - self.last.normal_force * self.compliance[self.last.links + 1]
+        why = blowup(pos, v, spin, excess, self.instance.extents)
+        if why is None and pos[2] < -0.05:
+            why = "object fell through the table"
+        if why:
+            raise Blowup(why)
+
+    def run(self, seconds, each=None):
+        """Step for `seconds`; `each(t)` runs before each step and may return True to stop early."""
+        dt = self.world.settings.time_step
+        for k in range(max(1, round(seconds / dt))):
+            if each is not None and each(k * dt):
+                return False
+            self.step()
+        return True
+
+    # --- observations ----------------------------------------------------------------------
+
+    def object_in_hand(self):
+        """Object pose in the hand frame: position (3,) of its COM and rotation matrix (3, 3)."""
+        hp, hr = self.hand.frame()
+        pos, orn = self.world.pose(self.obj)
+        rot = np.array(self.world.p.getMatrixFromQuaternion(orn)).reshape(3, 3)
+        return (pos - hp) @ hr, hr.T @ rot
+
+    def touching_links(self):
+        return set(self.last.links.tolist()) if self.last is not None else set()
+
+    def tips_touching(self):
+        return len(self.touching_links() & set(self.tips))
+
+    def on_table(self):
+        return any(c[9] > 0 for c in self.world.contacts(self.obj, self.world.table))
+
+    def held(self):
+        """In the hand and off the table: touched by at least two links and not resting on the table."""
+        return len(self.touching_links()) >= 2 and not self.on_table()
+
+    def relative_speed(self):
+        hv = self.world.velocity(self.hand.body)[0]
+        return float(np.linalg.norm(self.world.velocity(self.obj)[0] - hv))
+
+    def watch_grasp(self):
+        """Note the first instant the object is held."""
+        if math.isnan(self.grasp_time) and self.held():
+            self.grasp_time = self.world.time
+
+    def record_grasp(self):
+        """Grasp quality of the current contacts: Ferrari-Canny epsilon with each link's pair mu,
+        torque scale half the object's largest size (common practice: the object's radius)."""
+        s = self.last
+        mu = np.array([self.friction_of_link[int(k)] for k in s.links])
+        self.grasp_quality = grasp_quality(s.points, s.normals, mu, self.world.pose(self.obj)[0], self.size / 2)
+
+    def begin(self, label):
+        self.phases.append(PhaseLog(label))
+        return self.phases[-1]
+
+
+def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, settings=PhysicsSettings(), world=None):
+    """Run one trial and return its flat row (dict). `routine` is a routines.Routine.
+
+    A fresh world is used unless `world` is given (it is reset first, so a worker can reuse one
+    client; the numbers are the same either way). Simulation blow-ups give outcome `invalid`;
+    exceptions from the harness's own code propagate (the campaign runner records them as `error`).
+    """
+    from .routines import describe
+    problem = routine.unsuitable(model, instance)
+    if problem:
+        raise HarnessError(f"routine {routine.name!r} cannot run on {model.name} / {instance.name}: {problem}")
+    started = time.perf_counter()
+    own = world is None
+    world = World(settings) if own else world
+    if not own:
+        world.reset()
+    try:
+        ctx = TrialContext(world, model, instance, perturbation, seed)
+        try:
+            outcome, reason = routine.run(ctx)
+        except Blowup as exc:
+            outcome, reason = "invalid", str(exc)
+        row = describe(ctx, routine, outcome, reason)
+    finally:
+        if own:
+            world.close()
+    row.update({
+        "gripper": model.summary.get("spec", model.name.split("[")[0]), "variant": model.name,
+        "variant_key": model.key, "family": model.family, "object": instance.name,
+        "object_set": instance.set_name, "kind": instance.kind, "seed": int(seed),
+        **perturbation.columns(), "wall_s": time.perf_counter() - started,
+    })
+    return row
+
+
+def drift_of(ctx, reference):
+    """Drift (m, rad) of the object's pose in the hand against `reference` = (position, rotation)."""
+    return pose_error(*ctx.object_in_hand(), *reference)
