@@ -333,26 +333,38 @@ def _iter_dask(todo: Iterator[Task], fn, workers: int, timeout: float | None,
 
 
 def _dask_results(client, todo: Iterator[Task], fn, timeout: float | None) -> Iterator[Result]:
+    from concurrent.futures import CancelledError  # what dask raises for cancelled futures
+
     from dask.distributed import wait
 
-    # Only as many tasks in flight as the cluster has threads, so queued tasks stay on our side.
-    capacity = max(1, sum(client.nthreads().values()))
     live: dict = {}  # future -> [key, deadline]; the deadline is set once the task is seen running
+    exhausted = False
     while True:
-        while len(live) < capacity and (task := next(todo, None)) is not None:
-            key, payload = task
-            live[client.submit(call_task, fn, key, payload, pure=False, retries=0)] = [key, math.inf]
+        # No more tasks in flight than the cluster has threads up now: a task queued on a worker
+        # behind a crashing one would die with it (a restarting worker is not counted).
+        capacity = sum(client.nthreads().values())
+        while len(live) < capacity and not exhausted:
+            task = next(todo, None)
+            exhausted = task is None
+            if not exhausted:
+                key, payload = task
+                future = client.submit(call_task, fn, key, payload, pure=False, retries=0)
+                live[future] = [key, math.inf]
         if not live:
-            return
+            if exhausted:
+                return
+            client.wait_for_workers(1)
+            continue
         # wait(), not as_completed: each task has its own deadline, and as_completed has no
-        # per-call timeout.
+        # per-call timeout. wait() raises when time is up or a future was cancelled by the
+        # cluster; either way the futures' own states say what is done.
         try:
-            done = wait(list(live), timeout=_next_check(client, live, timeout),
-                        return_when="FIRST_COMPLETED").done
-        except TimeoutError:
-            done = set()
+            wait(list(live), timeout=_next_check(client, live, timeout),
+                 return_when="FIRST_COMPLETED")
+        except (TimeoutError, CancelledError):
+            pass
         for future, (key, deadline) in list(live.items()):
-            if future in done:
+            if future.done():
                 yield key, _dask_row(key, future)
             elif time.monotonic() >= deadline:
                 _abandon(client, future)
@@ -384,8 +396,6 @@ def _next_check(client, live: dict, timeout: float | None) -> float | None:
 
 
 def _dask_row(key: str, future) -> dict:
-    from asyncio import CancelledError
-
     from dask.distributed import KilledWorker
 
     try:
@@ -393,7 +403,7 @@ def _dask_row(key: str, future) -> dict:
     except KilledWorker:
         return failure_row(key, ERROR, "worker crashed (dask KilledWorker: the worker process "
                                        "died while running this task)")
-    except (Exception, CancelledError) as exc:  # lost or cancelled by the cluster itself
+    except Exception as exc:  # lost or cancelled by the cluster itself
         return failure_row(key, ERROR, _describe(exc))
 
 

@@ -38,6 +38,7 @@ def expected(tasks):
 
 
 def collect(tasks, **options):
+    options.setdefault("timeout", 60.0)  # a failing test ends instead of waiting for ever
     results = list(iter_results(tasks, dummy_tasks.trial, **options))
     keys = [key for key, _ in results]
     assert sorted(keys) == sorted(key for key, _ in tasks), "every task once"
