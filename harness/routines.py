@@ -26,7 +26,7 @@ from scipy.spatial.transform import Rotation
 from .errors import HarnessError
 from .fields import Problems, param, parse
 from .metrics import SlipTally
-from .steering import RollerContact, steer
+from .steering import RollerContact, contact_jacobian, steer
 from .trial import APPROACH_CLEARANCE, EJECT_SPEED, drift_of
 
 __all__ = ["ROUTINES", "Routine", "make_routine", "describe"]
@@ -35,8 +35,13 @@ GRASP, HOLD, RELEASE = "grasp", "hold", "release"
 LOSS_TIME = 0.1  # s without any touch after the grasp: the object is gone
 STILL_SPEED = 0.002  # m/s (or rad/s for joints); below this a closing or drawing motion has stopped
 PUSH_LIMIT = 0.005  # m; an approach that shoves the object further than this missed it
-GAIN = 4.0  # 1/s; pose feedback of closed-loop steering (a quarter-second time constant)
-SETTLE = 0.2  # s after a steered manoeuvre, rollers stopped, before its drift is read
+GAIN = 6.0  # 1/s; pose feedback of closed-loop steering (a 0.17 s time constant)
+SETTLE = 0.5  # s of feedback toward the final pose after a steered manoeuvre, before its drift is read
+# Rank tolerance of closed-loop steering: measured contact normals are off by 1-2 degrees (a ball's
+# normals miss its centre by about 0.5 mm at 20 mm radius, measured), which turns a free spin into
+# a weak false constraint; constraints weaker than this share of the strongest are taken as noise.
+STEER_RTOL = 0.05
+PIVOT_SLACK = math.radians(6)  # a pivot target this far past a limit is taken at the limit
 
 
 def smooth(s):
@@ -66,10 +71,14 @@ class Params:
 class DrawInParams(Params):
     draw_speed: float = param("draw_speed", gt=0, le=1, default=0.6, doc="share of the roller speed limit")
     draw_s: float = param("draw_s", gt=0, default=1.5, doc="longest draw-in time")
+    seat: bool = param("seat", "boolean", default=True,
+                       doc="draw the object in until it seats against the palm or fingers; false: "
+                           "stop with its centre level with the rollers (a fingertip grasp, for rolling)")
 
 
 @dataclass(frozen=True, kw_only=True)
 class RollParams(DrawInParams):
+    seat: bool = param("seat", "boolean", default=False, doc="see draw-in-grasp; rolling needs a fingertip grasp")
     axis: tuple = param("axis", "numbers", length=(3, 3), default=(0.0, 0.0, 1.0), doc="in the hand frame")
     angle: float = param("angle_deg", unit="deg", gt=0, default=math.pi / 2)
     speed: float = param("speed_deg_s", unit="deg", gt=0, default=math.pi / 2)
@@ -88,6 +97,7 @@ class PivotRollParams(RollParams):
 
 @dataclass(frozen=True, kw_only=True)
 class ShiftParams(DrawInParams):
+    seat: bool = param("seat", "boolean", default=False, doc="see draw-in-grasp; shifting needs a fingertip grasp")
     direction: tuple = param("direction", "numbers", length=(3, 3), default=(0.0, 0.0, -1.0), doc="in the hand frame")
     distance: float = param("distance_mm", unit="mm", gt=0, default=0.008)
     speed: float = param("speed_mm_s", unit="mm", gt=0, default=0.01)
@@ -192,9 +202,11 @@ def draw_in(ctx, p, log):
 
     def stopped(t):
         ctx.watch_grasp()
-        if ctx.touching_links() - rollers:
-            return True  # seated against the palm or a finger
         depth = ctx.object_in_hand()[0][2]
+        if p.seat and ctx.touching_links() - rollers:
+            return True  # seated against the palm or a finger
+        if not p.seat and depth <= _roller_depth(ctx):
+            return True  # centre level with the rollers: a fingertip grasp
         dt = ctx.world.settings.time_step
         still[0] = still[0] + dt if (still[1] - depth) / dt < STILL_SPEED else 0.0
         still[1] = depth
@@ -205,6 +217,12 @@ def draw_in(ctx, p, log):
     rise = start_depth - ctx.object_in_hand()[0][2]
     log.note = f"drawn in {rise * 1e3:.1f} mm"
     return ctx.held()
+
+
+def _roller_depth(ctx):
+    """Mean depth (m, hand frame) of the roller centres."""
+    return float(np.mean([ctx.hand.to_hand(ctx.world.link_state(ctx.hand.body, r.roll)[0])[2]
+                          for r in ctx.hand.rollers]))
 
 
 def _watch_loss(ctx, extra=None):
@@ -307,17 +325,36 @@ def _steer_towards(ctx, reference, feedforward, steer_pivots=True):
     v = feedforward[:3] + GAIN * (reference[0] - pos)
     w = feedforward[3:] + GAIN * Rotation.from_matrix(reference[1] @ rot.T).as_rotvec()
     twist = np.concatenate([hand_rot @ v, hand_rot @ w])
-    result = steer(twist, ctx.world.pose(ctx.obj)[0], [c for _, c in found], ctx.size / 2, steer_pivots)
+    contacts, origin = [c for _, c in found], ctx.world.pose(ctx.obj)[0]
+    # pivots head for the angles that produce the twist; meanwhile each roller drives only the part
+    # of its contact's wanted velocity along its current rolling direction (driving at the target
+    # angle's speed while the pivot is half-way pushes the object the wrong way, and the feedback
+    # then flips the pivots back and forth)
+    aim = steer(twist, origin, contacts, ctx.size / 2, steer_pivots, rtol=STEER_RTOL)
     speeds = np.zeros(len(ctx.hand.rollers))
     pivots = ctx.pivot_cmd.copy()
-    for (roller, _), speed, angle in zip(found, result.speeds, result.pivot_angles):
+    for (roller, c), angle in zip(found, aim.pivot_angles):
+        wanted = contact_jacobian(c.point[None], origin) @ aim.achieved
+        wanted -= (wanted @ c.normal) * c.normal
+        gain = c.surface_gain(c.pivot_angle)  # along the roller's current rolling direction
+        speed = float(wanted @ gain / (gain @ gain)) if gain @ gain > 0 else 0.0
         i = ctx.hand.rollers.index(roller)
         speeds[i] = speed
         if roller.pivot is not None:
-            pivots[ctx.hand.pivot_j.index(roller.pivot)] = angle
+            k = ctx.hand.pivot_j.index(roller.pivot)
+            pivots[k] = _continuous(angle, pivots[k], c.pivot_range)
     ctx.set_rollers(speeds)
     ctx.set_pivots(pivots)
-    return result.residual_norm
+    return aim.residual_norm
+
+
+def _continuous(angle, previous, limits):
+    """`angle` or `angle` +- 180 deg (the same rolling line, the speed's sign flips), whichever
+    in range is nearest the previous target: near a half-turn tie the plain choice flips every
+    tick and the pivot never leaves the middle."""
+    lo, hi = limits
+    near = [a for a in (angle - math.pi, angle + math.pi) if lo - PIVOT_SLACK <= a <= hi + PIVOT_SLACK]
+    return min([angle, *(min(max(a, lo), hi) for a in near)], key=lambda a: abs(a - previous))
 
 
 def _steered(ctx, p, log, axis, rate, duration, moves):
