@@ -26,14 +26,32 @@ def _parser():
     b.add_argument("--out", required=True, metavar="DIR", help="folder to write models into")
     s = sub.add_parser("show", help="print the variants or instances of a spec or object set")
     s.add_argument("file", metavar="FILE")
+    t = sub.add_parser("try", help="run one trial and print its metrics",
+                       description="Run one seeded trial of a routine on one gripper variant and one object "
+                                   "instance, headless, and print its row of metrics.")
+    t.add_argument("gripper", metavar="GRIPPER", help="gripper spec file")
+    t.add_argument("objects", metavar="OBJECTS", help="object set file")
+    t.add_argument("--object", required=True, metavar="NAME", help="object instance name (see `show OBJECTS`)")
+    t.add_argument("--routine", default="draw-in-grasp", metavar="NAME",
+                   help="draw-in-grasp (default), pinch-lift, roll, pivot-and-roll, shift, hold-under-shake, inside-grasp")
+    t.add_argument("--variant", metavar="NAME", help="variant name (see `show GRIPPER`); default: the first")
+    t.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                   help="a routine parameter in file units, e.g. --set angle_deg=450 (repeatable)")
+    t.add_argument("--seed", type=int, default=0, help="trial seed (default 0)")
+    t.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
+    from .analysis.commands import register
+    register(sub)
     return p
 
 
 def main(argv=None):
     args = _parser().parse_args(argv)
     from .errors import HarnessError, SpecError
+    from .analysis import commands as analysis
+    handlers = {"check": cmd_check, "build": cmd_build, "show": cmd_show, "try": cmd_try,
+                "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank}
     try:
-        return {"check": cmd_check, "build": cmd_build, "show": cmd_show}[args.command](args)
+        return handlers[args.command](args)
     except SpecError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
@@ -89,6 +107,60 @@ def cmd_show(args):
     from .table import format_table
     rows = [row for *_, row in _models(load_any(args.file))]
     print(format_table(rows))
+    return 0
+
+
+def _named(items, name, what, source):
+    """The item called `name` among `items` (objects with .name), or a SpecError listing the names."""
+    from .errors import SpecError
+    found = [i for i in items if i.name == name]
+    if not found:
+        names = ", ".join(i.name for i in items)
+        raise SpecError(source, [(what, f"must name one of: {names}; got {name!r}")])
+    return found[0]
+
+
+def _routine_table(pairs):
+    """--set KEY=VALUE pairs as a table, each value read as TOML (numbers, lists, true/false)."""
+    import tomllib
+
+    from .errors import SpecError
+    table = {}
+    for pair in pairs:
+        key, sep, value = pair.partition("=")
+        try:
+            table[key.strip()] = tomllib.loads(f"v = {value}")["v"] if sep else None
+        except tomllib.TOMLDecodeError:
+            table[key.strip()] = value  # plain text; the routine's fields say what is allowed
+        if not sep or not key.strip():
+            raise SpecError("--set", [(pair, "must be KEY=VALUE, e.g. angle_deg=90")])
+    return table
+
+
+def cmd_try(args):
+    import json
+    import math
+
+    from .errors import SpecError
+    from .grippers import build_models
+    from .objects import generate
+    from .routines import make_routine
+    from .specs import load_any, load_gripper
+    from .table import format_table
+    from .trial import run_trial
+    models = build_models(load_gripper(args.gripper))
+    model = _named(models, args.variant, "--variant", args.gripper) if args.variant else models[0]
+    instance = _named(generate(load_any(args.objects)), args.object, "--object", args.objects)
+    routine = make_routine(args.routine, _routine_table(args.set), file="--set", prefix="")
+    problem = routine.unsuitable(model, instance)
+    if problem:
+        raise SpecError("--routine", [(args.routine, problem)])
+    row = run_trial(model, instance, routine, seed=args.seed)
+    if args.json:
+        print(json.dumps({k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in row.items()}))
+    else:
+        print(format_table([{"metric": k, "value": v} for k, v in row.items()]))
+        print(f"\n{SAFETY}")
     return 0
 
 
