@@ -41,6 +41,8 @@ def _parser():
     t.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     from .analysis.commands import register
     register(sub)
+    from .campaign_commands import register as register_campaign
+    register_campaign(sub)
     return p
 
 
@@ -48,8 +50,10 @@ def main(argv=None):
     args = _parser().parse_args(argv)
     from .errors import HarnessError, SpecError
     from .analysis import commands as analysis
+    from . import campaign_commands as campaign
     handlers = {"check": cmd_check, "build": cmd_build, "show": cmd_show, "try": cmd_try,
-                "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank}
+                "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank,
+                "plan": campaign.cmd_plan, "run": campaign.cmd_run, "export": campaign.cmd_export}
     try:
         return handlers[args.command](args)
     except SpecError as exc:
