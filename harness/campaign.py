@@ -78,10 +78,6 @@ class StopRules:
     min_trials: int = param("min_trials", "integer", gt=0, default=5,
                             doc="trials a cell runs before its interval may stop it")
 
-    def check(self):
-        if self.hours is None and self.target_width is None:
-            yield "", "must give 'hours', 'target_width' or both (omit [stop] to run every trial)"
-
 
 @dataclass(frozen=True, kw_only=True)
 class CampaignFile:
@@ -100,6 +96,8 @@ class CampaignFile:
     def check(self):
         if not self.objects:
             yield "objects", "must name at least one object set file; got []"
+        if self.stop and self.stop.hours is None and self.stop.target_width is None:
+            yield "stop", "must give 'hours', 'target_width' or both (omit [stop] to run every trial)"
         if self.stop and self.stop.min_trials > self.trials:
             yield "stop.min_trials", (f"must be at most 'trials' ({self.trials}), the most a cell runs; "
                                       f"got {self.stop.min_trials}")
@@ -171,7 +169,8 @@ def load_campaign(path) -> Campaign:
     raw = load_toml(path)
     problems = Problems(path)
     top = parse(CampaignFile, raw, problems, known=_LIST_KEYS)
-    base = _root(path, top.root if top else ".", problems)
+    root = raw.get("root", ".")
+    base = _root(path, root if isinstance(root, str) else ".", problems)
     grippers = _grippers(path, base, raw, problems)
     routines = _routines(path, raw, problems)
     sets = _object_sets(base, top.objects if top else (), problems)
