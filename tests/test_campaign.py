@@ -314,3 +314,107 @@ def test_cli_plan_and_export(tiny, tmp_path, capsys):
     out = capsys.readouterr().out
     assert "2 cell(s), 4 trial(s); 0 trial(s)" in out and "Estimated run time with 2 worker(s)" in out
     assert main(["export", str(tmp_path / "nowhere"), "--to", "csv"]) == 2
+
+
+# --- stopping rules ----------------------------------------------------------------------------
+
+def _fake_tasks(cells, trials):
+    from harness.campaign import TrialTask
+    return [TrialTask(f"{c}-{i}", {"variant": c, "object_set": "s", "object": "o", "routine": "r", "i": i})
+            for c in cells for i in range(trials)]
+
+
+def test_widest_interval_first_and_a_narrow_cell_closes():
+    from harness.campaign_commands import Scheduler
+    sched = Scheduler(_fake_tasks("abc", 40), target_width=0.35, min_trials=5)
+    handed = []
+    for key, payload in sched:
+        handed.append(payload["variant"])
+        # a always succeeds (interval narrows fast), b alternates, c always fails
+        win = {"a": True, "b": payload["i"] % 2 == 0, "c": False}[payload["variant"]]
+        sched.record({**payload, "outcome": "held" if win else "dropped", "success": win})
+    assert handed[:3] == ["a", "b", "c"]  # untried cells first (width 1), in plan order
+    counts = {c: handed.count(c) for c in "abc"}
+    # Wilson 95 % interval (Newcombe 1998, method 3), worked by hand: with k = n its width is
+    # z^2 / (n + z^2), <= 0.35 from n = 8 (z = 1.96); at k = n / 2 it is 2z sqrt(1/(4n) + z^2/(4n^2)) /
+    # (1 + z^2/n): 0.3473 at n = 28, 0.3588 at n = 26 (n = 27, k = 14: 0.3527)
+    assert counts == {"a": 8, "b": 28, "c": 8}, counts
+    assert all(sched.closed(c) for c in sched.cells)
+
+
+def test_without_a_target_every_trial_runs_in_plan_order_and_a_spent_budget_hands_out_none():
+    import time
+
+    from harness.campaign_commands import Scheduler
+    tasks = _fake_tasks("ab", 3)
+    assert [k for k, _ in Scheduler(tasks)] == [t.trial_key for t in tasks]
+    assert list(Scheduler(tasks, deadline=time.monotonic() - 1)) == []
+    done = [{**tasks[0].payload, "outcome": "held", "success": True}]
+    sched = Scheduler(tasks[1:], target_width=0.9, min_trials=1, done_rows=done * 2)
+    assert sched.cells[("a", "s", "o", "r")][1:3] == [2, 2]  # finished rows of a resumed run count
+
+
+def test_campaign_with_a_target_width_stops_early(tiny, tmp_path):
+    text = TINY.replace("trials = 2", "trials = 6") + "\n[stop]\ntarget_width = 0.9\nmin_trials = 2\n"
+    folder = _run(write(tmp_path, text, "stop.toml"), tmp_path / "runs", workers=2)
+    df = load_run(folder)
+    assert 4 <= len(df) < 12  # each cell closes after 2 to 5 trials when its outcomes agree
+    assert df.groupby("variant").size().min() >= 2
+
+
+# --- interruption and crash safety --------------------------------------------------------------
+
+def _start(campaign, out, *extra):
+    import subprocess
+    import sys
+    return subprocess.Popen([sys.executable, "-m", "harness.cli", "run", str(campaign), "--out", str(out),
+                             "--workers", "2", *extra], cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            text=True)
+
+
+def _wait_for_rows(out, n, proc, limit=60):
+    import time
+    end = time.monotonic() + limit
+    while time.monotonic() < end and proc.poll() is None:
+        for journal in Path(out).glob("*/journal.sqlite"):
+            with sqlite3.connect(journal) as db:
+                if db.execute("SELECT COUNT(*) FROM trials").fetchone()[0] >= n:
+                    return journal.parent
+        time.sleep(0.05)
+    raise AssertionError("the run did not record trials in time")
+
+
+@pytest.fixture
+def longer(tmp_path):
+    shutil.copy(REPO / DUO, tmp_path / "duo.toml")
+    (tmp_path / "set.toml").write_text(SET)
+    return write(tmp_path, TINY.replace("trials = 2", "trials = 8"), "longer.toml")
+
+
+def test_ctrl_c_exits_130_with_a_resume_hint_and_kill_9_loses_nothing_recorded(longer, tmp_path):
+    import signal
+    proc = _start(longer, tmp_path / "a")
+    folder = _wait_for_rows(tmp_path / "a", 2, proc)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert f"--resume {folder}" in err
+    proc = _start(longer, tmp_path / "b", "--resume", str(folder))
+    import time
+    time.sleep(1.5)
+    proc.kill()  # SIGKILL at an arbitrary instant
+    proc.communicate(timeout=60)
+    assert run_campaign(longer, resume=folder, workers=2, progress=False, echo=lambda *a, **k: None) == 0
+    with sqlite3.connect(folder / "journal.sqlite") as db:
+        assert db.execute("SELECT COUNT(*), COUNT(DISTINCT trial_key) FROM trials").fetchone() == (16, 16)
+    reference = _run(longer, tmp_path / "whole", workers=2)
+    _same_rows(load_run(folder), load_run(reference))
+
+
+# --- cluster backend ----------------------------------------------------------------------------
+
+def test_dask_local_cluster_gives_the_same_rows(tiny, tmp_path):
+    pytest.importorskip("dask.distributed")
+    local = _run(tiny, tmp_path / "local", workers=1)
+    cluster = _run(tiny, tmp_path / "dask", workers=2, executor="dask")
+    _same_rows(load_run(cluster), load_run(local))
