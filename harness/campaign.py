@@ -139,11 +139,18 @@ class Campaign:
     stop: StopRules | None
     raw: dict = field(repr=False)
 
+    def fingerprint(self):
+        """Hash of the file and of what it resolves to (variant parameters, object sets, routines), so a
+        run folder is only resumed by the same campaign on the same models, wherever the files live."""
+        return stable_hash(self.raw, [[m.key for m in models] for _, models in self.grippers],
+                           [[s.name, s.seed, normalised(s.entries)] for s, _ in self.object_sets],
+                           [[u.routine.name, normalised(u.routine.params)] for u in self.routines])
+
     def resolved(self):
         """A JSON-ready record of what the campaign expands to (for the run folder)."""
         return {
             "name": self.name, "description": self.description, "file": str(self.file), "seed": self.seed,
-            "trials": self.trials, "timeout_s": self.timeout_s, "campaign_hash": stable_hash(self.raw),
+            "trials": self.trials, "timeout_s": self.timeout_s, "campaign_hash": self.fingerprint(),
             "grippers": [{"spec": str(spec.file), "name": spec.name, "family": spec.family,
                           "variants": [{"name": m.name, "key": m.key} for m in models]}
                          for spec, models in self.grippers],

@@ -172,7 +172,7 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
     from tqdm import tqdm
 
     from .analysis.commands import summary_text
-    from .campaign import expand, failure_inputs, load_campaign, run_payload, stable_hash
+    from .campaign import expand, failure_inputs, load_campaign, run_payload
     from .errors import HarnessError
     from .journal import EVENTS_NAME, EventLog, Journal
     from .runs import environment, load_run, new_run_folder, read_campaign, write_campaign
@@ -189,8 +189,7 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
                                f"{resolved['campaign_hash']}")
     else:
         folder = new_run_folder(out, campaign.name)
-        write_campaign(folder, {**resolved, "campaign_hash": stable_hash(campaign.raw),
-                                "planned_trials": len(plan.tasks), "skipped_trials": plan.skipped,
+        write_campaign(folder, {**resolved, "planned_trials": len(plan.tasks), "skipped_trials": plan.skipped,
                                 "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
                                 "environment": environment()})
     stop = campaign.stop
