@@ -377,9 +377,12 @@ def _wait_for_rows(out, n, proc, limit=60):
     end = time.monotonic() + limit
     while time.monotonic() < end and proc.poll() is None:
         for journal in Path(out).glob("*/journal.sqlite"):
-            with sqlite3.connect(journal) as db:
-                if db.execute("SELECT COUNT(*) FROM trials").fetchone()[0] >= n:
-                    return journal.parent
+            try:
+                with sqlite3.connect(journal) as db:
+                    if db.execute("SELECT COUNT(*) FROM trials").fetchone()[0] >= n:
+                        return journal.parent
+            except sqlite3.OperationalError:  # the run is creating the file or its table
+                pass
         time.sleep(0.05)
     raise AssertionError("the run did not record trials in time")
 
