@@ -81,8 +81,9 @@ class PhaseLog:
 class TrialContext:
     """The running trial: world, hand, object, control state and metric tallies."""
 
-    def __init__(self, world: World, model, instance, perturbation: Perturbation, seed: int):
+    def __init__(self, world: World, model, instance, perturbation: Perturbation, seed: int, on_step=None):
         self.world, self.model, self.instance, self.pert = world, model, instance, perturbation
+        self.on_step = on_step  # called as on_step(ctx) after every step's metrics (plots, replay frames)
         self.rng = rng_for(seed, "trial")
         world.add_table(size=(0.8, 0.8, 0.05), rolling=TABLE_ROLLING)
         self.obj = self._place_object()
@@ -220,6 +221,8 @@ class TrialContext:
             why = "object fell through the table"
         if why:
             raise Blowup(why)
+        if self.on_step is not None:
+            self.on_step(self)
 
     def run(self, seconds, each=None):
         """Step for `seconds`; `each(t)` runs before each step and may return True to stop early."""
@@ -273,12 +276,16 @@ class TrialContext:
         return self.phases[-1]
 
 
-def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, settings=PhysicsSettings(), world=None):
+def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, settings=PhysicsSettings(), world=None,
+              on_step=None):
     """Run one trial and return its flat row (dict). `routine` is a routines.Routine.
 
     A fresh world is used unless `world` is given (it is reset first, so a worker can reuse one
     client; the numbers are the same either way). Simulation blow-ups give outcome `invalid`;
     exceptions from the harness's own code propagate (the campaign runner records them as `error`).
+    `on_step(ctx)` (a TrialContext) is called after every physics step; it may read anything
+    (poses, `ctx.last` contacts, camera images) but must not command the world, or the trial's
+    numbers change.
     """
     from .routines import describe
     problem = routine.unsuitable(model, instance)
@@ -290,7 +297,7 @@ def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, set
     if not own:
         world.reset()
     try:
-        ctx = TrialContext(world, model, instance, perturbation, seed)
+        ctx = TrialContext(world, model, instance, perturbation, seed, on_step)
         try:
             outcome, reason = routine.run(ctx)
         except Blowup as exc:
