@@ -13,7 +13,7 @@ from harness.contact import sample_contacts
 from harness.grippers import build_models
 from harness.metrics import blowup
 from harness.objects import generate
-from harness.routines import ROUTINES, _GRASPED, make_routine, roller_contacts
+from harness.routines import _GRASPED, ROUTINES, STEER_RTOL, make_routine, roller_contacts
 from harness.specs import load_any, load_gripper
 from harness.steering import steer
 from harness.trial import Perturbation, TrialContext, run_trial
@@ -94,17 +94,16 @@ def test_inside_grasp_needs_a_cavity():
     assert routine.unsuitable(gripper("duo-roller"), instance("seal-ring")) is None
 
 
-@pytest.mark.parametrize("axis", [(1.0, 0.0, 0.0), (0.0, 1.0, 0.0)])
-def test_tri_roller_rolls_a_held_ball_about_horizontal_axes(axis):
+@pytest.mark.parametrize("axis", [(1.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 1.0), (1.0, 1.0, 0.0)])
+def test_tri_roller_rolls_a_held_ball_about_several_axes(axis):
     # Closed-loop roller steering (grasp map, Murray, Li and Sastry 1994, ch. 5): the three-roller
-    # hand turns a held ball 90 deg about a horizontal hand axis with the rollers alone. Measured:
-    # 83.9 and 86.2 deg; the routine's own tolerance (10 deg) is asserted. The issue's 5 deg and
-    # the turn about the hand axis (z) are not met yet (see the issue note).
+    # hand turns a held ball 90 deg about a hand axis with the rollers alone, within 5 deg
+    # (measured: 89.4, 89.7, 88.6 and 89.7 deg), and the ball stays within a few mm of its place.
     routine = make_routine("roll", {"axis": list(axis), "angle_deg": 90})
     row = run_trial(gripper("tri-roller"), instance("ball"), routine, seed=0)
     assert row["outcome"] == "held", row["reason"]
-    assert row["rotation_deg"] == pytest.approx(90.0, abs=10.0)
-    assert row["roll_drift_mm"] < 3.0
+    assert row["rotation_deg"] == pytest.approx(90.0, abs=5.0)
+    assert row["roll_drift_deg"] < 5.0 and row["roll_drift_mm"] < 5.0
 
 
 def test_steering_residual_on_measured_contacts_of_a_held_ball():
@@ -119,8 +118,8 @@ def test_steering_residual_on_measured_contacts_of_a_held_ball():
         found = [c for _, c in roller_contacts(ctx)]
         centre = world.pose(ctx.obj)[0]
     assert len(found) == 3
-    spin = steer([0, 0, 0, 0.0, 0.0, 1.0], centre, found, 0.02, rtol=0.05)
-    push = steer([0.01, 0, 0, 0, 0, 0], centre, found, 0.02, rtol=0.05)
+    spin = steer([0, 0, 0, 0.0, 0.0, 1.0], centre, found, 0.02, rtol=STEER_RTOL)
+    push = steer([0.01, 0, 0, 0, 0, 0], centre, found, 0.02, rtol=STEER_RTOL)
     assert spin.residual_norm < 0.02 * 0.02 * 1.0  # under 2 % of the commanded 0.02 m/s (L x w)
     assert push.residual_norm == pytest.approx(0.01, rel=0.1)
 
