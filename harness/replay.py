@@ -9,7 +9,8 @@ that only reads state. A rendered replay runs the trial twice: a survey pass (no
 per step where the hand and object are, the largest slip speed and the phases, which fixes the
 camera and the slip colour scale for the whole replay and picks moments of interest; the render
 pass draws the frames. Both passes' rows are compared, so every rendered replay also checks that
-rendering left the physics unchanged.
+rendering left the physics unchanged. A "step" below is one sample: one call of the observer
+(run_trial calls it after every sampled physics step), numbered from 0 in both passes.
 
 Contacts are drawn on each frame by projecting the contact points through the camera's view and
 projection matrices: a disc per contact (size grows with its normal force, colour with its slip
@@ -39,6 +40,7 @@ SLIP_COLOURMAP = "plasma"  # perceptually uniform and readable with colour-visio
 FOV_DEG = 40.0
 TURN_DEG = 15.0  # the camera looks through the widest gap between the fingers, turned by this for depth
 ELEVATION_DEG = 22.0  # above the table's plane
+FRAME_RATE = 30  # frames per simulated second when no --every is given
 NEAR_HAND = 0.25  # m; an object farther than this from the palm (thrown away) is left out of the framing
 
 
@@ -290,6 +292,7 @@ class FrameRenderer:
         self.sink = sink
         self.frames: list[Frame] = []
         self.count = 0
+        self.calls = 0  # observer calls so far: the index of the sample, as in the survey's lists
 
     def wanted(self, step):
         if self.steps is not None and step in self.steps:
@@ -297,7 +300,7 @@ class FrameRenderer:
         return bool(self.every) and step % self.every == 0
 
     def __call__(self, ctx):
-        step = ctx.steps - 1
+        step, self.calls = self.calls, self.calls + 1
         if not self.wanted(step):
             return
         camera = self.camera(step) if callable(self.camera) else self.camera
@@ -433,16 +436,21 @@ class ReplayResult:
         return self.source.logged is not None and not self.differences
 
 
-def replay(run, trial_key, *, frames=None, gif=None, every=8, width=480, height=360, campaign_file=None,
+def replay(run, trial_key, *, frames=None, gif=None, every=None, width=480, height=360, campaign_file=None,
            source=None):
-    """Replay a trial; write PNG frames to the folder `frames` and/or an animated GIF, and compare rows."""
+    """Replay a trial; write PNG frames to the folder `frames` and/or an animated GIF, and compare rows.
+
+    `every`: render every n-th sample (observer call); default: about FRAME_RATE frames per simulated second.
+    """
     source = source or open_trial(run, trial_key, campaign_file)
     if frames is None and gif is None:
         row = simulate(source)
         return ReplayResult(source, row, _against_journal(source, row), None)
-    if every < 1:
+    if every is not None and every < 1:
         raise HarnessError(f"--every must be at least 1; got {every}")
     first, surveyed = survey(source)
+    period = surveyed.time[1] - surveyed.time[0] if len(surveyed) > 1 else 1.0 / FRAME_RATE
+    every = every or max(1, round(1.0 / (FRAME_RATE * period)))
     folder = Path(frames) if frames is not None else None
     if folder is not None:
         folder.mkdir(parents=True, exist_ok=True)
@@ -454,11 +462,11 @@ def replay(run, trial_key, *, frames=None, gif=None, every=8, width=480, height=
         if gif is not None:
             kept.append(frame.image)
 
-    # the last step is always drawn, so the final state is in every replay
+    # the last sample is always drawn, so the final state is in every replay
     row, renderer = render(source, surveyed, steps={len(surveyed) - 1}, every=every, width=width,
                            height=height, sink=sink)
     if gif is not None:
-        write_gif(kept, gif, every * (surveyed.time[1] - surveyed.time[0]) if len(surveyed) > 1 else 0.04)
+        write_gif(kept, gif, every * period)
     return ReplayResult(source, row, _against_journal(source, row), row_differences(first, row),
                         renderer.count, Path(gif) if gif else None, folder)
 

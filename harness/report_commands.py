@@ -41,8 +41,8 @@ def register(subparsers):
     p.add_argument("trial_key", metavar="TRIAL_KEY", help="the trial's key (a unique prefix is enough)")
     p.add_argument("--frames", metavar="DIR", help="write PNG frames into this folder")
     p.add_argument("--gif", metavar="FILE", help="write an animated GIF")
-    p.add_argument("--every", type=int, default=8, metavar="N",
-                   help="render every N-th physics step (default 8: 30 frames per simulated second)")
+    p.add_argument("--every", type=int, metavar="N",
+                   help="render every N-th sample of the trial (default: about 30 frames per simulated second)")
     p.add_argument("--size", default="480x360", metavar="WxH", help="frame size in pixels (default 480x360)")
 
 
