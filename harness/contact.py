@@ -47,7 +47,10 @@ class ContactSample:
 
 def point_velocity(com, v, w, x):
     """Velocity (k, 3) of material points x (k, 3) of a rigid body with COM velocity v and spin w."""
-    return v + np.cross(w, x - com)
+    r = x - com
+    # w x r written out: np.cross costs about 40 us per call on these tiny arrays, this about 5
+    return v + np.column_stack((w[1] * r[:, 2] - w[2] * r[:, 1], w[2] * r[:, 0] - w[0] * r[:, 2],
+                                w[0] * r[:, 1] - w[1] * r[:, 0]))
 
 
 _EMPTY = ContactSample(*(np.zeros((0, 3)),) * 2, np.zeros(0), np.zeros((0, 3)), np.zeros((0, 3)),

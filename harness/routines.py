@@ -173,7 +173,7 @@ def _closing(ctx, p, log, fraction):
 
     def settled(t):
         speeds = np.abs(ctx.hand.joint_speeds(ctx.hand.close_j))
-        still[0] = still[0] + ctx.world.settings.time_step if speeds.max() < STILL_SPEED * 10 else 0.0
+        still[0] = still[0] + ctx.control_dt if speeds.max() < STILL_SPEED * 10 else 0.0
         return t > 0.15 and still[0] > 0.1 and ctx.tips_touching() >= 2
 
     ctx.run(p.close_s or ctx.hand.closing_time() + 0.3, settled)
@@ -230,7 +230,7 @@ def _roller_depth(ctx):
 def _watch_loss(ctx, extra=None):
     """A per-step check that stops a holding phase once the object has left the hand."""
     lost = [0.0]
-    dt = ctx.world.settings.time_step
+    dt = ctx.control_dt
 
     def check(t):
         ctx.watch_grasp()
@@ -373,7 +373,7 @@ def _steered(ctx, p, log, axis, rate, duration, moves):
         return pos0 + shift, Rotation.from_rotvec(turn).as_matrix() @ rot0
 
     spin = [0.0]
-    dt = ctx.world.settings.time_step
+    dt = ctx.control_dt
 
     def control(t):
         ff = rate if t < duration else np.zeros(6)

@@ -37,6 +37,10 @@ TABLE_CLEARANCE = 0.003  # m; lowest gap between a fingertip and the table at th
 # resistance coefficient of a few thousandths (recalled from memory), about 5e-5 m for a 10 mm
 # tube; without it a round object set down lying keeps rolling from the smallest disturbance.
 TABLE_ROLLING = 5e-5
+# The controller (phase logic, commands, actuator lag) and the metrics, sanity checks and observers
+# run every SAMPLE_EVERY physics steps: 60 Hz at the default 240 Hz step, a servo rate. The closing
+# lead (hand.CLOSE_LEAD_TIME = 1/60 s of travel) is sized so fingers still close at full speed.
+SAMPLE_EVERY = 4
 EJECT_SPEED = 0.5  # m/s; an object leaving the hand faster than this was thrown, not dropped
 
 
@@ -114,6 +118,7 @@ class TrialContext:
         self.pivot_out = self.pivot_cmd.copy()
         self.grip = None  # (fraction, torque_scale) while the fingers are driven
         self.clamp = None  # fixed closing-joint targets once the grasp is formed (Hand.clamp_targets)
+        self._sent = {}  # last command sent per actuator group
         self.total = SlipTally()
         self.phases: list[PhaseLog] = []
         self.last = None  # latest ContactSample of the object against the hand
@@ -177,6 +182,11 @@ class TrialContext:
 
     # --- control ---------------------------------------------------------------------------
 
+    @property
+    def control_dt(self):
+        """Period (s) of the controller: phase callbacks, commands and metric samples."""
+        return self.world.settings.time_step * SAMPLE_EVERY
+
     def move_wrist(self, position):
         self.hand.move_wrist(position, self.wrist_orientation)
 
@@ -187,29 +197,45 @@ class TrialContext:
         self.pivot_cmd = np.broadcast_to(np.asarray(angles, dtype=float), self.pivot_cmd.shape).copy()
 
     def _actuate(self):
-        dt = self.world.settings.time_step
+        """Send the commands of one control tick (every SAMPLE_EVERY steps; a motor keeps its last
+        command, so unchanged roller, pivot and clamp commands are not sent again)."""
+        dt = self.control_dt
         gain = 1.0 if self.pert.actuator_lag <= 0 else 1.0 - math.exp(-dt / self.pert.actuator_lag)
         self.roller_out += gain * (self.roller_cmd * self.speed_factor - self.roller_out)
         self.pivot_out += gain * (self.pivot_cmd - self.pivot_out)
-        if len(self.roller_out):
+        if len(self.roller_out) and self._changed("rollers", self.roller_out):
             self.hand.set_rollers(self.roller_out)
-        if len(self.pivot_out):
+        if len(self.pivot_out) and self._changed("pivots", self.pivot_out):
             self.hand.set_pivots(self.pivot_out)
         if self.grip is None:
-            self.hand.open()
+            if self._changed("fingers", "open"):
+                self.hand.open()
         elif self.clamp is not None:
-            self.hand.hold_closing(self.clamp, self.grip[1])
+            if self._changed("fingers", (*self.clamp, self.grip[1])):
+                self.hand.hold_closing(self.clamp, self.grip[1])
         else:
+            self._sent.pop("fingers", None)
             self.hand.close(*self.grip)
 
+    def _changed(self, what, value):
+        value = tuple(value) if isinstance(value, np.ndarray) else value
+        if self._sent.get(what) == value:
+            return False
+        self._sent[what] = value
+        return True
+
     def step(self):
-        """One control tick and physics step, then the metric sample and the sanity check."""
-        self._actuate()
+        """One physics step with its actuation; every SAMPLE_EVERY steps also the metric sample,
+        the sanity check and the observer. Returns whether this step was sampled."""
+        if self.steps % SAMPLE_EVERY == 0:
+            self._actuate()
         self.world.step()
         self.steps += 1
+        if self.steps % SAMPLE_EVERY:
+            return False
         w = self.world
         self.last = sample_contacts(w, self.obj, self.hand.body)
-        dt = w.settings.time_step
+        dt = self.control_dt
         self.total.add(self.last, self.friction_of_link, dt)
         if self.phases:
             self.phases[-1].tally.add(self.last, self.friction_of_link, dt)
@@ -223,14 +249,17 @@ class TrialContext:
             raise Blowup(why)
         if self.on_step is not None:
             self.on_step(self)
+        return True
 
     def run(self, seconds, each=None):
-        """Step for `seconds`; `each(t)` runs before each step and may return True to stop early."""
+        """Step for `seconds`; `each(t)` runs at every sample (the control rate, before the next
+        step) and may return True to stop early."""
         dt = self.world.settings.time_step
+        sampled = True
         for k in range(max(1, round(seconds / dt))):
-            if each is not None and each(k * dt):
+            if sampled and each is not None and each(k * dt):
                 return False
-            self.step()
+            sampled = self.step()
         return True
 
     # --- observations ----------------------------------------------------------------------
