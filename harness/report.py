@@ -370,6 +370,8 @@ def _regression(page, base, cand, against, margin=0.05, alpha=0.05):
     except HarnessError as exc:
         return f'<p class="note">No comparison with {_e(against)}: {_e(exc)}</p>'
     code = gate_exit_code(result)
+    result = result.assign(_overall=result["object"] != ALL).sort_values(
+        ["_overall", "variant", "object", "routine"], kind="stable").reset_index(drop=True)
     rows = []
     for r in result.to_dict("records"):
         rows.append({"variant": r["variant"], "object": r["object"], "routine": r["routine"], "pairing": r["pairing"],
@@ -382,12 +384,16 @@ def _regression(page, base, cand, against, margin=0.05, alpha=0.05):
                      "drift change (mm)": _interval(r["drift_diff"], r["drift_lo"], r["drift_hi"]),
                      "drift": VERDICT_SIGN.get(r["drift_verdict"], r["drift_verdict"]),
                      "beyond margin": "yes" if r["beyond_margin"] else ""})
-    rows.sort(key=lambda r: (r["object"] != ALL, r["variant"], r["object"], r["routine"]))
     gate = (f"Gate: {int(result['beyond_margin'].sum())} row(s) significantly worse by more than {margin:g}: "
             "`grasp-harness compare` exits 1." if code else
             f"Gate: no row significantly worse by more than {margin:g}: `grasp-harness compare` exits 0.")
     fig, ax = plt.subplots(figsize=(8, 1.0 + 0.3 * len(result)), constrained_layout=True)
-    labels = [f"{r['variant'][:20]} | {r['object']} | {r['routine']}" for r in result.to_dict("records")]
+    one = result["variant"].nunique() == 1
+    places = ["all objects and routines" if r["object"] == ALL else f"{r['object']} | {r['routine']}"
+              for r in result.to_dict("records")]
+    labels = places if one else [f"{_wrapped(v)} | {p}" for v, p in zip(result["variant"], places)]
+    if one:
+        ax.set_title(result["variant"].iloc[0], fontsize=9)
     y = np.arange(len(result))
     ax.hlines(y, result["diff_lo"], result["diff_hi"], color="#23395d", linewidth=2)
     for verdict, marker in (("worse", "v"), ("better", "^"), ("no detectable change", "o")):
