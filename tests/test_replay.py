@@ -31,24 +31,9 @@ seed = 3
 trials = 2
 objects = ["set.toml"]
 timeout_s = 60
-
-[[gripper]]
-spec = "duo.toml"
-variants = ["duo-roller[finger.roller.radius_mm=12]"]
-
-[[gripper]]
-spec = "jaw.toml"
-
-[[routine]]
-name = "pinch-lift"
-
-[perturbation]
-object_xy_mm = 3
-yaw_deg = 20
-friction_scale = [0.8, 1.2]
-mass_scale = [0.9, 1.1]
-wrist_tilt_deg = 2
-actuator_lag_s = 0.02
+gripper = [{ spec = "duo.toml", variants = ["duo-roller[finger.roller.radius_mm=12]"] }, { spec = "jaw.toml" }]
+routine = [{ name = "pinch-lift" }]
+perturbation = { object_xy_mm = 3, yaw_deg = 20, friction_scale = [0.8, 1.2], mass_scale = [0.9, 1.1], wrist_tilt_deg = 2, actuator_lag_s = 0.02 }
 """
 
 OBJECTS = """
