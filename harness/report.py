@@ -273,6 +273,15 @@ def _cell_label(ax, x, y, cell, cmap):
 
 # --- slip and drift -------------------------------------------------------------------------------
 
+def _horizontal():
+    """boxplot's keyword for horizontal boxes: `orientation` from matplotlib 3.10, `vert` before."""
+    import matplotlib
+    major, minor = (int(v) for v in matplotlib.__version__.split(".")[:2])
+    return {"orientation": "horizontal"} if (major, minor) >= (3, 10) else {"vert": False}
+
+
+_HORIZONTAL = _horizontal()
+
 def _distributions(page, df):
     from .analysis.summary import valid_mask
     plt = agg_pyplot()
@@ -284,8 +293,8 @@ def _distributions(page, df):
                                           ("drift_mm", "largest drift in the hand (mm)"))):
         floor = LOG_FLOOR[column]
         data = [np.maximum(valid.loc[valid["variant"] == v, column].dropna().to_numpy(), floor) for v in variants]
-        boxes = ax.boxplot([d if len(d) else [np.nan] for d in data], vert=False, widths=0.55,
-                           patch_artist=True, showfliers=False, medianprops={"color": "black", "linewidth": 2})
+        boxes = ax.boxplot([d if len(d) else [np.nan] for d in data], widths=0.55, patch_artist=True,
+                           showfliers=False, medianprops={"color": "black", "linewidth": 2}, **_HORIZONTAL)
         for k, box in enumerate(boxes["boxes"]):
             box.set(facecolor="#dfe6ef", edgecolor="#23395d", hatch=("", "..", "//", "\\\\")[k % 4])
         for k, v in enumerate(variants):
