@@ -122,6 +122,12 @@ def read_urdf_object(file):
     link = root.find("link")
     if root.tag != "robot" or link is None:
         raise ValueError("must be a URDF with a <robot> holding at least one <link>")
+    links = {lk.get("name") for lk in root.findall("link")}
+    for joint in root.findall("joint"):  # the engine refuses the whole file over one such joint
+        for end in ("parent", "child"):
+            named = joint.find(end).get("link") if joint.find(end) is not None else None
+            if named not in links:
+                raise ValueError(f"has joint {joint.get('name')!r} whose {end} link {named!r} is missing")
     el = link.find("inertial")
     try:
         mass = float(el.find("mass").get("value"))
