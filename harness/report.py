@@ -456,9 +456,13 @@ def worst_trials(df, n=2):
 def _worst(page, run, df, n, campaign_file, replays):
     from .errors import HarnessError
     from .replay import open_trial, render, replay_command, row_differences, survey
+    from .runs import read_campaign
     chosen = worst_trials(df, n)
     if not chosen:
         return '<p class="note">No dropped, slipping or drifting valid trials.</p>'
+    # a campaign path recorded relative to where the run was started goes into the command resolved
+    recorded = Path(campaign_file or read_campaign(run).get("file", ""))
+    extra = ("--campaign", str(recorded.resolve())) if campaign_file or not recorded.is_absolute() else ()
     cards, problem = [], None
     for kind, moment, row in chosen:
         key = row["trial_key"]
@@ -480,7 +484,7 @@ def _worst(page, run, df, n, campaign_file, replays):
                 thumb = page.image(_png(frame.image), status, alt=f"{kind}: {source.title()}")
             except HarnessError as exc:
                 problem = str(exc)
-        cards.append(_card(kind, row, thumb, replay_command(run, key, "--gif", f"{key}.gif")))
+        cards.append(_card(kind, row, thumb, replay_command(run, key, "--gif", f"{key}.gif", *extra)))
     note = (f'<p class="note">Thumbnails left out: {_e(problem)}</p>' if problem else
             '<p class="note">Each thumbnail is one frame of a fresh replay of the trial: discs mark contacts '
             "(size: normal force; colour: slip speed, scale in the corner), arrows the slip direction.</p>")

@@ -94,10 +94,25 @@ def test_worst_trials_carry_a_thumbnail_status_and_their_replay_command(made):
     chosen = worst_trials(load_run(run), 1)
     assert chosen and len(report.replays) == len(chosen)
     for _, _, row in chosen:
-        assert f"grasp-harness replay {run} {row['trial_key']} --gif" in text
+        assert f"grasp-harness replay {run} {row['trial_key']} --gif {row['trial_key']}.gif" in text
     # the run was made with the same code, so every thumbnail's replay matches and rendering changed nothing
     assert all(match and steady for _, match, steady in report.replays)
     assert text.count("matches the journal bit for bit") == len(chosen)
+
+
+def test_the_printed_replay_command_runs_and_matches(made, tmp_path, monkeypatch, capsys):
+    import re
+    import shlex
+    from harness.report_commands import cmd_replay
+    _, _, page = made
+    command = next(t for t in page.text if t.startswith("grasp-harness replay "))
+    parser = argparse.ArgumentParser()
+    register(parser.add_subparsers(dest="command"))
+    monkeypatch.chdir(tmp_path)
+    args = parser.parse_args([*shlex.split(command)[1:], "--every", "10", "--size", "96x72"])
+    assert cmd_replay(args) == 0
+    assert re.search(r"match: all \d+ columns", capsys.readouterr().out)
+    assert (tmp_path / args.gif).stat().st_size > 0
 
 
 def test_regression_of_a_run_against_itself_finds_no_change(made):
