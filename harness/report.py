@@ -286,6 +286,8 @@ def _distributions(page, df):
     from .analysis.summary import valid_mask
     plt = agg_pyplot()
     valid = df[valid_mask(df)]
+    if valid.empty:
+        return '<p class="note">No valid trials: every trial was invalid, an error or a timeout.</p>'
     variants = sorted(valid["variant"].unique())
     rng = np.random.default_rng(0)  # jitter only; fixed so a report is reproducible
     fig, axes = plt.subplots(1, 2, figsize=(11, 1.2 + 0.75 * max(len(variants), 2)), constrained_layout=True)

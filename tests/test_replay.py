@@ -39,21 +39,8 @@ perturbation = { object_xy_mm = 3, yaw_deg = 20, friction_scale = [0.8, 1.2], ma
 OBJECTS = """
 name = "two-things"
 seed = 9
-
-[[object]]
-name = "vial"
-kind = "cylinder"
-radius_mm = 8
-height_mm = 45
-mass_g = 12
-friction = 0.6
-
-[[object]]
-name = "ball"
-kind = "sphere"
-radius_mm = 20
-mass_g = 30
-friction = 0.7
+object = [{ name = "vial", kind = "cylinder", radius_mm = 9, height_mm = 50, mass_g = 14, friction = 0.6 },
+          { name = "ball", kind = "sphere", radius_mm = 20, mass_g = 30, friction = 0.7 }]
 """
 
 
