@@ -39,10 +39,14 @@ def _parser():
                    help="a routine parameter in file units, e.g. --set angle_deg=450 (repeatable)")
     t.add_argument("--seed", type=int, default=0, help="trial seed (default 0)")
     t.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
+    t.add_argument("--plot", metavar="FILE.png",
+                   help="also write the object's position in the hand, slip speed and contact force over time as a PNG")
     from .analysis.commands import register
     register(sub)
     from .campaign_commands import register as register_campaign
     register_campaign(sub)
+    from .report_commands import register as register_report
+    register_report(sub)
     return p
 
 
@@ -51,9 +55,11 @@ def main(argv=None):
     from .errors import HarnessError, SpecError
     from .analysis import commands as analysis
     from . import campaign_commands as campaign
+    from . import report_commands as report
     handlers = {"check": cmd_check, "build": cmd_build, "show": cmd_show, "try": cmd_try,
                 "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank,
-                "plan": campaign.cmd_plan, "run": campaign.cmd_run, "export": campaign.cmd_export}
+                "plan": campaign.cmd_plan, "run": campaign.cmd_run, "export": campaign.cmd_export,
+                "report": report.cmd_report, "replay": report.cmd_replay}
     try:
         return handlers[args.command](args)
     except SpecError as exc:
@@ -159,7 +165,14 @@ def cmd_try(args):
     problem = routine.unsuitable(model, instance)
     if problem:
         raise SpecError("--routine", [(args.routine, problem)])
-    row = run_trial(model, instance, routine, seed=args.seed)
+    recorder = None
+    if args.plot:
+        from .plots import TrialRecorder
+        recorder = TrialRecorder()
+    row = run_trial(model, instance, routine, seed=args.seed, on_step=recorder)
+    if args.plot:
+        from .plots import trial_plot
+        trial_plot(recorder, args.plot, title=f"{model.name} / {instance.name} / {routine.name} / seed {args.seed}")
     if args.json:
         print(json.dumps({k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in row.items()}))
     else:
