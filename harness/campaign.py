@@ -149,7 +149,8 @@ class Campaign:
     def resolved(self):
         """A JSON-ready record of what the campaign expands to (for the run folder)."""
         return {
-            "name": self.name, "description": self.description, "file": str(self.file), "seed": self.seed,
+            "name": self.name, "description": self.description, "file": str(self.file),
+            "path": str(Path(self.file).resolve()), "seed": self.seed,
             "trials": self.trials, "timeout_s": self.timeout_s, "campaign_hash": self.fingerprint(),
             "grippers": [{"spec": str(spec.file), "name": spec.name, "family": spec.family,
                           "variants": [{"name": m.name, "key": m.key} for m in models]}

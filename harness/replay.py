@@ -76,7 +76,9 @@ def open_trial(run, trial_key, campaign_file=None) -> TrialSource:
     from .runs import read_campaign
     run = Path(run)
     record = read_campaign(run)
-    file = Path(campaign_file or record.get("file", ""))
+    # as given on the command line, else where it was when the run was made
+    candidates = [campaign_file] if campaign_file else [record.get("file", ""), record.get("path", "")]
+    file = next((Path(f) for f in candidates if f and Path(f).is_file()), Path(candidates[0] or ""))
     if not file.is_file():
         raise HarnessError(f"the campaign file {file} that {run} was run from is not found (from {Path.cwd()}); "
                            "pass --campaign FILE")

@@ -54,10 +54,27 @@ def environment() -> dict:
             libs[dist] = metadata.version(dist)
         except metadata.PackageNotFoundError:
             libs[dist] = None
-    return {"tool": {"name": "grasp-harness", "version": __version__}, "python": sys.version.split()[0],
+    return {"tool": {"name": "grasp-harness", "version": __version__, "source": _source_revision()},
+            "python": sys.version.split()[0],
             "libraries": libs,
             "machine": {"platform": platform.platform(), "machine": platform.machine(),
                         "processor": platform.processor(), "node": platform.node(), "cpus": os.cpu_count()}}
+
+
+def _source_revision():
+    """The git commit of the harness's own source and whether it had uncommitted edits, when it runs
+    from a checkout (a replay that does not match its journal usually ran other code)."""
+    import subprocess
+    here = Path(__file__).resolve().parent
+    try:
+        commit = subprocess.run(["git", "rev-parse", "HEAD"], cwd=here, capture_output=True, text=True, timeout=5)
+        dirty = subprocess.run(["git", "status", "--porcelain", "--", "."], cwd=here, capture_output=True,
+                               text=True, timeout=5)
+    except (OSError, subprocess.SubprocessError):
+        return None
+    if commit.returncode != 0:
+        return None
+    return {"commit": commit.stdout.strip(), "uncommitted_edits": bool(dirty.stdout.strip())}
 
 
 def write_campaign(folder, record: dict) -> None:
