@@ -12,8 +12,10 @@ phase means for the trial's outcome:
   than trial.EJECT_SPEED.
 - release: failing (the object sticks to the hand) is `stalled`.
 
-Register a routine by adding it to ROUTINES (see DEVELOPERS.md).
+The phases themselves live in phases.py. Register a routine by adding it to ROUTINES (see
+DEVELOPERS.md).
 """
+
 
 from __future__ import annotations
 
@@ -21,35 +23,15 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.spatial.transform import Rotation
 
-from .errors import HarnessError
 from .fields import Problems, param, parse
 from .metrics import SlipTally
-from .steering import RollerContact, contact_jacobian, steer
-from .trial import APPROACH_CLEARANCE, EJECT_SPEED, drift_of
+from .phases import approach, close, draw_in, hold, inside_approach, lift, pivot, roll, shake, shift, spread
+from .trial import EJECT_SPEED
 
 __all__ = ["ROUTINES", "Routine", "make_routine", "describe"]
 
 GRASP, HOLD, RELEASE = "grasp", "hold", "release"
-LOSS_TIME = 0.1  # s without any touch after the grasp: the object is gone
-STILL_SPEED = 0.002  # m/s (or rad/s for joints); below this a closing or drawing motion has stopped
-PUSH_LIMIT = 0.005  # m; an approach that shoves the object further than this missed it
-GAIN = 6.0  # 1/s; pose feedback of closed-loop steering (a 0.17 s time constant)
-SETTLE = 1.0  # s of feedback toward the final pose after a steered manoeuvre, before its drift is read
-# Rank tolerance of closed-loop steering: measured contact normals are off by 1-4 degrees (a ball's
-# normals miss its centre by 0.5-1.3 mm at 20 mm radius, measured), which turns a free spin into a
-# weak false constraint; constraints weaker than this share of the strongest are taken as noise.
-# 0.05 kept a false constraint that stopped a roll about a horizontal axis (singular value ratio
-# 0.052); 0.1 dropped a real one (vertical translation with near-horizontal normals, ratio 0.095).
-STEER_RTOL = 0.07
-PIVOT_SLACK = math.radians(25)  # a pivot target this far past a limit is taken at the limit (cos 25 deg = 0.9)
-
-
-def smooth(s):
-    """Smoothstep 0..1 (zero speed at both ends)."""
-    s = min(max(s, 0.0), 1.0)
-    return s * s * (3 - 2 * s)
 
 
 # --- parameters ----------------------------------------------------------------------------
@@ -119,328 +101,7 @@ class ShakeParams(DrawInParams):
     shake_s: float = param("shake_s", gt=0, default=1.5)
 
 
-# --- phases --------------------------------------------------------------------------------
-
-def _outside_target(ctx, p):
-    return ctx.wrist_for_grip_height(p.grip_height * ctx.object_top())
-
-
-def _inside_target(ctx, p):
-    """Fingers pre-closed until the tips fit the cavity, tips' centre halfway down the cavity."""
-    bore = cavity_radius(ctx.instance)
-    for fraction in np.linspace(0.0, 1.0, 41):
-        ctx.hand.reset_joints(fraction)
-        if _tip_radius(ctx) < bore - 0.002:
-            break
-    ctx.preshape = float(fraction)
-    top = ctx.object_top()
-    floor = top - ctx.instance.draws.get("height", 0.0) + ctx.instance.draws.get("base", 0.0)
-    return ctx.wrist_for_grip_height((top + floor) / 2)
-
-
-def _tip_radius(ctx):
-    """Largest distance of any tip's collision box from the hand axis (m)."""
-    p, cid, r = ctx.world.p, ctx.world.cid, 0.0
-    for link in ctx.tips:
-        lo, hi = p.getAABB(ctx.hand.body, link, physicsClientId=cid)
-        corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
-        r = max(r, float(np.linalg.norm(ctx.hand.to_hand(corners)[:, :2], axis=1).max()))
-    return r
-
-
-def cavity_radius(instance):
-    d = instance.draws
-    return d["inner_radius"] if instance.kind == "ring" else d["outer_radius"] - d["wall"]
-
-
-def approach(ctx, p, log, target=_outside_target):
-    """Come down from above onto the grasp pose, fingers open (or pre-shaped)."""
-    goal = target(ctx, p)
-    start = goal + [0.0, 0.0, APPROACH_CLEARANCE]
-    ctx.hand.teleport(start, ctx.wrist_orientation)
-    ctx.grip = (ctx.preshape, p.grip_torque) if ctx.preshape else None
-    ctx.wrist_goal = goal
-    ctx.run(p.approach_s, lambda t: ctx.move_wrist(start + (goal - start) * smooth(t / p.approach_s)))
-    ctx.run(0.05)  # let the wrist arrive
-    pushed = float(np.linalg.norm(ctx.world.pose(ctx.obj)[0][:2] - ctx.rest_position[:2]))
-    log.note = f"object pushed {pushed * 1e3:.1f} mm"
-    return pushed < PUSH_LIMIT
-
-
-def _closing(ctx, p, log, fraction):
-    ctx.grip = (fraction, p.grip_torque)
-    still = [0.0]
-
-    def settled(t):
-        speeds = np.abs(ctx.hand.joint_speeds(ctx.hand.close_j))
-        still[0] = still[0] + ctx.control_dt if speeds.max() < STILL_SPEED * 10 else 0.0
-        return t > 0.15 and still[0] > 0.1 and ctx.tips_touching() >= 2
-
-    ctx.run(p.close_s or ctx.hand.closing_time() + 0.3, settled)
-    ctx.watch_grasp()
-    log.note = f"{ctx.tips_touching()} fingertips touching"
-    return ctx.tips_touching() >= 2
-
-
-def close(ctx, p, log):
-    """Close the fingers with the chosen share of their torque until they stop on the object."""
-    return _closing(ctx, p, log, 1.0)
-
-
-def spread(ctx, p, log):
-    """Open the pre-shaped fingers against the inside wall."""
-    return _closing(ctx, p, log, 0.0)
-
-
-def draw_in(ctx, p, log):
-    """Counter-rotate the rollers so their contact surfaces pull the object up into the hand,
-    until it is seated (touches a link other than a roller), stops rising, or the time is up."""
-    limit = np.array([ctx.hand.limits[j][3] for j in ctx.hand.roll_j])
-    ctx.set_rollers(p.draw_speed * limit)
-    start_depth = ctx.object_in_hand()[0][2]
-    still = [0.0, start_depth]
-
-    rollers = {r.roll for r in ctx.hand.rollers}
-
-    def stopped(t):
-        ctx.watch_grasp()
-        depth = ctx.object_in_hand()[0][2]
-        if p.seat and ctx.touching_links() - rollers:
-            return True  # seated against the palm or a finger
-        if not p.seat and depth <= _roller_depth(ctx):
-            return True  # centre level with the rollers: a fingertip grasp
-        dt = ctx.world.settings.time_step
-        still[0] = still[0] + dt if (still[1] - depth) / dt < STILL_SPEED else 0.0
-        still[1] = depth
-        return t > 0.2 and still[0] > 0.1
-
-    ctx.run(p.draw_s, stopped)
-    ctx.set_rollers(0.0)
-    rise = start_depth - ctx.object_in_hand()[0][2]
-    log.note = f"drawn in {rise * 1e3:.1f} mm"
-    return ctx.held()
-
-
-def _roller_depth(ctx):
-    """Mean depth (m, hand frame) of the roller centres."""
-    return float(np.mean([ctx.hand.to_hand(ctx.world.link_state(ctx.hand.body, r.roll)[0])[2]
-                          for r in ctx.hand.rollers]))
-
-
-def _watch_loss(ctx, extra=None):
-    """A per-step check that stops a holding phase once the object has left the hand."""
-    lost = [0.0]
-    dt = ctx.control_dt
-
-    def check(t):
-        ctx.watch_grasp()
-        if ctx.last is not None and ctx.last.count:
-            lost[0] = 0.0
-        else:
-            if lost[0] == 0.0:
-                ctx.loss_speed = ctx.relative_speed()
-            lost[0] += dt
-        if lost[0] > LOSS_TIME:
-            return True
-        return extra(t) if extra else False
-
-    return check
-
-
-def lift(ctx, p, log):
-    """Clamp the fingers where they are (the grasp instant) and raise the wrist; rollers braked."""
-    ctx.record_grasp()
-    ctx.clamp = ctx.hand.clamp_targets(spreading=ctx.grip[0] < ctx.preshape)
-    start = ctx.wrist_goal.copy()
-    ctx.wrist_goal = start + [0.0, 0.0, p.lift]
-    ctx.run(p.lift_s, _watch_loss(ctx, lambda t: ctx.move_wrist(start + [0, 0, p.lift * smooth(t / p.lift_s)])))
-    ctx.run(0.1, _watch_loss(ctx))
-    risen = ctx.world.pose(ctx.obj)[0][2] - ctx.rest_position[2]
-    log.note = f"object raised {risen * 1e3:.1f} mm"
-    return ctx.held() and risen > 0.5 * p.lift
-
-
-def hold(ctx, p, log):
-    """Keep still; drift against the pose in the hand at the start of the hold."""
-    ref = ctx.object_in_hand()
-    ctx.run(p.hold_s, _watch_loss(ctx))
-    log.drift = drift_of(ctx, ref)
-    return ctx.held()
-
-
-def shake(ctx, p, log):
-    """Move the wrist on a horizontal circle with constant acceleration and swing gravity's direction."""
-    ref = ctx.object_in_hand()
-    centre = ctx.wrist_goal
-    w = 2 * math.pi * p.frequency
-    radius = p.accel * ctx.world.settings.gravity / w ** 2
-    g = ctx.world.settings.gravity
-    ramp = 1.0 / p.frequency  # one period to spin up, so the wrist does not start with a jerk
-
-    def move(t):
-        a = min(t / ramp, 1.0)
-        ctx.move_wrist(centre + radius * a * np.array([math.cos(w * t) - 1, math.sin(w * t), 0.0]))
-        tilt = p.tilt * math.sin(w * t / 4)
-        ctx.world.p.setGravity(0, g * math.sin(tilt), -g * math.cos(tilt), physicsClientId=ctx.world.cid)
-
-    try:
-        ctx.run(p.shake_s, _watch_loss(ctx, move))
-    finally:
-        ctx.world.p.setGravity(0, 0, -g, physicsClientId=ctx.world.cid)
-    ctx.move_wrist(centre)
-    ctx.run(0.2, _watch_loss(ctx))
-    log.drift = drift_of(ctx, ref)
-    return ctx.held()
-
-
-def roller_contacts(ctx):
-    """The hand's rollers now touching the object, as steering.RollerContact (world frame)."""
-    sample, hand, out = ctx.last, ctx.hand, []
-    for roller in hand.rollers:
-        mask = sample.links == roller.roll
-        if not mask.any():
-            continue
-        fn = sample.normal_force[mask]
-        point = fn @ sample.points[mask] / fn.sum()
-        normal = fn @ sample.normals[mask]
-        centre = ctx.world.link_state(hand.body, roller.roll)[0]
-        pivot_kw = {}
-        if roller.pivot is not None:
-            lo, hi = hand.limits[roller.pivot][:2]
-            pivot_kw = {"pivot_axis": hand.joint_axis(roller.pivot), "pivot_range": (lo, hi),
-                        "pivot_angle": float(hand.joint_positions([roller.pivot])[0])}
-        else:
-            pivot_kw = {"pivot_range": (0.0, 0.0)}
-        out.append((roller, RollerContact(point, normal, centre, hand.joint_axis(roller.roll), roller.radius, **pivot_kw)))
-    return out
-
-
-def _steer_towards(ctx, reference, feedforward, steer_pivots=True):
-    """Set rollers (and pivots) for the hand-frame twist `feedforward` (v, w) plus pose feedback
-    toward `reference` = (position, rotation) in the hand frame; returns the residual norm."""
-    found = roller_contacts(ctx)
-    if len(found) < 2:
-        ctx.set_rollers(0.0)
-        return math.nan
-    pos, rot = ctx.object_in_hand()
-    _, hand_rot = ctx.hand.frame()
-    v = feedforward[:3] + GAIN * (reference[0] - pos)
-    w = feedforward[3:] + GAIN * Rotation.from_matrix(reference[1] @ rot.T).as_rotvec()
-    twist = np.concatenate([hand_rot @ v, hand_rot @ w])
-    contacts, origin = [c for _, c in found], ctx.world.pose(ctx.obj)[0]
-    # pivots head for the angles that produce the twist; meanwhile each roller drives only the part
-    # of its contact's wanted velocity along its current rolling direction (driving at the target
-    # angle's speed while the pivot is half-way pushes the object the wrong way, and the feedback
-    # then flips the pivots back and forth)
-    aim = steer(twist, origin, contacts, ctx.size / 2, steer_pivots, rtol=STEER_RTOL)
-    speeds = np.zeros(len(ctx.hand.rollers))
-    pivots = ctx.pivot_cmd.copy()
-    for (roller, c), angle in zip(found, aim.pivot_angles):
-        wanted = contact_jacobian(c.point[None], origin) @ aim.achieved
-        wanted -= (wanted @ c.normal) * c.normal
-        gain = c.surface_gain(c.pivot_angle)  # along the roller's current rolling direction
-        gg, ww = gain @ gain, wanted @ wanted
-        # the part along the current direction, faded by cos^2 of the misalignment: the rest of a
-        # misaligned roller's push goes sideways (e.g. a ball being spun is driven down)
-        speed = float(wanted @ gain / gg) * float((wanted @ gain) ** 2 / (gg * ww)) if gg > 0 and ww > 0 else 0.0
-        i = ctx.hand.rollers.index(roller)
-        speeds[i] = speed
-        if roller.pivot is not None:
-            k = ctx.hand.pivot_j.index(roller.pivot)
-            pivots[k] = _continuous(angle, pivots[k], c.pivot_range)
-    ctx.set_rollers(speeds)
-    ctx.set_pivots(pivots)
-    return aim.residual_norm
-
-
-def _continuous(angle, previous, limits):
-    """`angle` or `angle` +- 180 deg (the same rolling line, the speed's sign flips), whichever
-    in range is nearest the previous target: near a half-turn tie the plain choice flips every
-    tick and the pivot never leaves the middle."""
-    lo, hi = limits
-    near = [a for a in (angle - math.pi, angle + math.pi) if lo - PIVOT_SLACK <= a <= hi + PIVOT_SLACK]
-    return min([angle, *(min(max(a, lo), hi) for a in near)], key=lambda a: abs(a - previous))
-
-
-def _steered(ctx, p, log, axis, rate, duration, moves):
-    """Run a steered manoeuvre: `moves(t)` gives the reference motion in the hand frame as
-    (displacement (3,), rotation vector (3,)); feedforward is its rate."""
-    pos0, rot0 = ctx.object_in_hand()
-    residuals = []
-
-    def reference(t):
-        shift, turn = moves(min(t, duration))
-        return pos0 + shift, Rotation.from_rotvec(turn).as_matrix() @ rot0
-
-    spin = [0.0]
-    dt = ctx.control_dt
-
-    def control(t):
-        ff = rate if t < duration else np.zeros(6)
-        residuals.append(_steer_towards(ctx, reference(t), ff))
-        _, w_obj = ctx.world.velocity(ctx.obj)
-        _, w_hand = ctx.world.velocity(ctx.hand.body)
-        spin[0] += float((w_obj - w_hand) @ (ctx.hand.frame()[1] @ axis)) * dt
-        return False
-
-    ctx.run(duration + SETTLE, _watch_loss(ctx, control))
-    ctx.set_rollers(0.0)
-    log.drift = drift_of(ctx, reference(duration))
-    finite = [r for r in residuals if math.isfinite(r)]
-    ctx.residual = max(finite) if finite else math.nan
-    return spin[0]
-
-
-def roll(ctx, p, log):
-    """Turn the held object about `axis` (hand frame) by `angle` with the rollers alone, closed-loop."""
-    axis = np.asarray(p.axis, dtype=float) / np.linalg.norm(p.axis)
-    duration = p.angle / p.speed
-    turned = _steered(ctx, p, log, axis, np.concatenate([np.zeros(3), axis * p.speed]), duration,
-                      lambda t: (np.zeros(3), axis * p.speed * t))
-    ctx.rotation = (turned, p.angle)
-    log.note = f"turned {math.degrees(turned):.1f} of {math.degrees(p.angle):.1f} deg"
-    return ctx.held() and abs(turned - p.angle) <= p.tolerance
-
-
-def shift(ctx, p, log):
-    """Translate the held object along `direction` (hand frame) within the grasp, closed-loop."""
-    direction = np.asarray(p.direction, dtype=float) / np.linalg.norm(p.direction)
-    start = ctx.object_in_hand()[0]
-    duration = p.distance / p.speed
-    _steered(ctx, p, log, np.zeros(3), np.concatenate([direction * p.speed, np.zeros(3)]), duration,
-             lambda t: (direction * p.speed * t, np.zeros(3)))
-    moved = float((ctx.object_in_hand()[0] - start) @ direction)
-    ctx.shifted = (moved, p.distance)
-    log.note = f"moved {moved * 1e3:.1f} of {p.distance * 1e3:.1f} mm"
-    return ctx.held() and abs(moved - p.distance) <= p.tolerance
-
-
-def pivot(ctx, p, log):
-    """Turn every roller's pivot to `pivot` while holding (rollers braked)."""
-    ref = ctx.object_in_hand()
-    start = ctx.pivot_cmd.copy()
-    ctx.run(p.pivot_s, _watch_loss(ctx, lambda t: ctx.set_pivots(start + (p.pivot - start) * smooth(t / p.pivot_s))))
-    ctx.run(SETTLE, _watch_loss(ctx))
-    log.drift = drift_of(ctx, ref)
-    return ctx.held()
-
-
-def release(ctx, p, log):
-    """Open the fingers, rollers stopped; the object should come free."""
-    ctx.grip, ctx.clamp = None, None
-    ctx.set_rollers(0.0)
-    ctx.run(0.5)
-    return ctx.last.count == 0
-
-
 # --- routines ------------------------------------------------------------------------------
-
-def _inside_approach(ctx, p, log):
-    return approach(ctx, p, log, _inside_target)
-
-
-_inside_approach.__name__ = "approach"
-
 
 @dataclass(frozen=True)
 class Routine:
@@ -486,7 +147,7 @@ ROUTINES = {
     "pivot-and-roll": (PivotRollParams, (*_GRASPED, (pivot, HOLD), (roll, HOLD), (hold, HOLD)), "rollers"),
     "shift": (ShiftParams, (*_GRASPED, (shift, HOLD), (hold, HOLD)), "rollers"),
     "hold-under-shake": (ShakeParams, (*_GRASPED, (shake, HOLD)), "rollers"),
-    "inside-grasp": (Params, ((_inside_approach, GRASP), (spread, GRASP), (lift, HOLD), (hold, HOLD)), "cavity"),
+    "inside-grasp": (Params, ((inside_approach, GRASP), (spread, GRASP), (lift, HOLD), (hold, HOLD)), "cavity"),
 }
 
 

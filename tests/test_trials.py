@@ -13,7 +13,8 @@ from harness.contact import sample_contacts
 from harness.grippers import build_models
 from harness.metrics import blowup
 from harness.objects import generate
-from harness.routines import _GRASPED, ROUTINES, STEER_RTOL, make_routine, roller_contacts
+from harness.phases import STEER_RTOL, roller_contacts
+from harness.routines import _GRASPED, ROUTINES, make_routine
 from harness.specs import load_any, load_gripper
 from harness.steering import steer
 from harness.trial import Perturbation, TrialContext, run_trial
