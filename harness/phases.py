@@ -21,6 +21,7 @@ __all__ = ["approach", "inside_approach", "close", "spread", "draw_in", "lift", 
 
 LOSS_TIME = 0.1  # s without any touch after the grasp: the object is gone
 STILL_SPEED = 0.002  # m/s (or rad/s for joints); below this a closing or drawing motion has stopped
+BORE_CLEARANCE = 0.0005  # m; pre-shaped tips (their collision boxes, which overstate round parts) clear a bore by this
 PUSH_LIMIT = 0.005  # m; an approach that shoves the object further than this missed it
 GAIN = 6.0  # 1/s; pose feedback of closed-loop steering (a 0.17 s time constant)
 SETTLE = 1.0  # s of feedback toward the final pose after a steered manoeuvre, before its drift is read
@@ -45,13 +46,16 @@ def _outside_target(ctx, p):
 
 
 def _inside_target(ctx, p):
-    """Fingers pre-closed until the tips fit the cavity, tips' centre halfway down the cavity."""
+    """Fingers pre-closed until the tips fit the cavity (the least closure that clears the bore by
+    BORE_CLEARANCE, else the closure with the smallest tip circle), tips' centre halfway down it."""
     bore = cavity_radius(ctx.instance)
+    radii = {}
     for fraction in np.linspace(0.0, 1.0, 41):
         ctx.hand.reset_joints(fraction)
-        if _tip_radius(ctx) < bore - 0.002:
-            break
-    ctx.preshape = float(fraction)
+        radii[float(fraction)] = _tip_radius(ctx)
+    fitting = [f for f, r in radii.items() if r < bore - BORE_CLEARANCE]
+    ctx.preshape = fitting[0] if fitting else min(radii, key=radii.get)
+    ctx.hand.reset_joints(ctx.preshape)
     top = ctx.object_top()
     floor = top - ctx.instance.draws.get("height", 0.0) + ctx.instance.draws.get("base", 0.0)
     return ctx.wrist_for_grip_height((top + floor) / 2)
@@ -86,29 +90,34 @@ def approach(ctx, p, log, target=_outside_target):
     return pushed < PUSH_LIMIT
 
 
-def _closing(ctx, p, log, fraction):
+def _closing(ctx, p, log, fraction, touching):
+    """Drive the fingers toward `fraction` until they stop on the object; `touching()` counts the
+    contacts that make a grasp (at least two)."""
     ctx.grip = (fraction, p.grip_torque)
     still = [0.0]
 
     def settled(t):
         speeds = np.abs(ctx.hand.joint_speeds(ctx.hand.close_j))
         still[0] = still[0] + ctx.control_dt if speeds.max() < STILL_SPEED * 10 else 0.0
-        return t > 0.15 and still[0] > 0.1 and ctx.tips_touching() >= 2
+        return t > 0.15 and still[0] > 0.1 and touching() >= 2
 
     ctx.run(p.close_s or ctx.hand.closing_time() + 0.3, settled)
     ctx.watch_grasp()
-    log.note = f"{ctx.tips_touching()} fingertips touching"
-    return ctx.tips_touching() >= 2
+    return touching() >= 2
 
 
 def close(ctx, p, log):
-    """Close the fingers with the chosen share of their torque until they stop on the object."""
-    return _closing(ctx, p, log, 1.0)
+    """Close the fingers with the chosen share of their torque until their tips stop on the object."""
+    ok = _closing(ctx, p, log, 1.0, ctx.tips_touching)
+    log.note = f"{ctx.tips_touching()} fingertips touching"
+    return ok
 
 
 def spread(ctx, p, log):
-    """Open the pre-shaped fingers against the inside wall."""
-    return _closing(ctx, p, log, 0.0)
+    """Open the pre-shaped fingers against the inside wall (any part of a finger may bear on it)."""
+    ok = _closing(ctx, p, log, 0.0, lambda: len(ctx.touching_links()))
+    log.note = f"{len(ctx.touching_links())} finger links touching"
+    return ok
 
 
 def draw_in(ctx, p, log):
