@@ -22,7 +22,10 @@ overhead
 scaling
     Throughput (trials/s) of a batch of quickstart-campaign payloads run by `harness.executors`
     with `harness.campaign.run_payload` on 2 workers over 1 worker; whole-batch wall time, worker
-    start-up (spawn, imports, model loading) included.
+    start-up (spawn, imports, model loading) included. The sums of the trials' own wall times
+    (their `wall_s`) on 1 and on 2 workers are given beside it: when they differ, the two workers
+    slowed each other down (shared caches, memory bandwidth, other work on the machine); what is
+    left is start-up and idle time.
 memory
     Resident memory of one executor worker (from /proc/self/statm: resident pages x page size, the
     current RSS, not the peak) after its 5,000th draw-in trial minus after its 100th (--quick:
@@ -34,8 +37,9 @@ throughput
     scheduler and all): recorded trials / wall time / cores. --quick runs its first trial index of
     every cell only (trials = 1).
 
-Each figure also records the 1-minute load average before and after it: other work on the machine
-skews every timing, and the table says so when the load was high.
+Each figure also records the 1-minute load average before and after it (the bench's own workers
+raise it too); the table gives the load before the first figure: other work on the machine skews
+every timing.
 
 `--profile` prints cProfile's top functions (cumulative and own time) over the overhead trials.
 """
@@ -70,7 +74,7 @@ TARGETS = {
     "startup": (0.5, "max", "s"),
     "throughput": (None, None, "trials/s/core"),
 }
-FULL = {"trials": 14, "scaling_batch": 48, "memory": (100, 5000), "quickstart_trials": None}
+FULL = {"trials": 14, "scaling_batch": 120, "memory": (100, 5000), "quickstart_trials": None}
 QUICK = {"trials": 5, "scaling_batch": 16, "memory": (100, 1000), "quickstart_trials": 1}
 # pybullet calls that change the engine's state; every other call (get*, transforms) is a query
 _MUTATING = ("set", "reset", "change", "create", "load", "step", "remove", "apply", "restore", "save", "enable")
@@ -224,9 +228,11 @@ def measure_scaling(batch):
     one, rows1 = _run_batch(tasks, 1)
     two, rows2 = _run_batch(tasks, 2)
     failed = sum(r.get("outcome") in ("error", "timeout") for r in rows1 + rows2)
+    trial1, trial2 = (sum(r.get("wall_s", 0.0) for r in rows) for rows in (rows1, rows2))
     return {"value": one / two, "batch": batch, "one_worker_s": one, "two_workers_s": two,
             "one_worker_trials_per_s": batch / one, "two_workers_trials_per_s": batch / two,
-            "failed_rows": failed, "cpus": os.cpu_count()}
+            "trials_s_one_worker": trial1, "trials_s_two_workers": trial2, "failed_rows": failed,
+            "cpus": os.cpu_count()}
 
 
 def resident_mb():
@@ -314,7 +320,8 @@ def _detail(name, r):
                 f"replay exact: {'yes' if r['replay_exact'] else 'NO'}")
     if name == "scaling":
         return (f"{r['batch']} quickstart trials: 1 worker {r['one_worker_s']:.1f} s, 2 workers "
-                f"{r['two_workers_s']:.1f} s (start-up included)")
+                f"{r['two_workers_s']:.1f} s (start-up included); trials alone {r['trials_s_one_worker']:.1f} s "
+                f"vs {r['trials_s_two_workers']:.1f} s of worker time")
     if name == "memory":
         return (f"RSS after trial {r['last']} minus after trial {r['first']} ({r['after_first_mb']:.0f} -> "
                 f"{r['after_last_mb']:.0f} MB, {r['source']}); took {r['seconds']:.0f} s")
@@ -368,11 +375,10 @@ def cmd_bench(args):
                          "target": "-" if target is None else f"{'<=' if sense == 'max' else '>='} {target:g} {unit}",
                          "verdict": r["verdict"], "how": _detail(name, r)})
         print(format_table(rows))
-        busiest = max(max(r["load_before"], r["load_after"]) for r in results.values())
-        if busiest > 0.5 * (os.cpu_count() or 1):
-            print(f"\nnote: the 1-minute load average reached {busiest:.1f} on {os.cpu_count()} core(s) while "
-                  "measuring (the bench itself adds up to 2); other work on the machine skews every timing.")
-        if args.quick:
+        start = next(iter(results.values()))["load_before"]
+        print(f"\n1-minute load average before the bench: {start:.2f} on {os.cpu_count()} core(s)"
+              + ("; other work on the machine skews every timing" if start > 0.5 else ""))
+        if args.quick and "memory" in results:
             print("\n--quick: memory after 1,000 trials minus after 100 (the target is for 5,000); smaller batches.")
     if profile is not None:
         stats = pstats.Stats(profile, stream=sys.stderr if args.json else sys.stdout)
