@@ -47,6 +47,8 @@ def _parser():
     register_campaign(sub)
     from .report_commands import register as register_report
     register_report(sub)
+    from .bench import register as register_bench
+    register_bench(sub)
     return p
 
 
@@ -55,11 +57,12 @@ def main(argv=None):
     from .errors import HarnessError, SpecError
     from .analysis import commands as analysis
     from . import campaign_commands as campaign
+    from . import bench
     from . import report_commands as report
     handlers = {"check": cmd_check, "build": cmd_build, "show": cmd_show, "try": cmd_try,
                 "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank,
                 "plan": campaign.cmd_plan, "run": campaign.cmd_run, "export": campaign.cmd_export,
-                "report": report.cmd_report, "replay": report.cmd_replay}
+                "report": report.cmd_report, "replay": report.cmd_replay, "bench": bench.cmd_bench}
     try:
         return handlers[args.command](args)
     except SpecError as exc:
