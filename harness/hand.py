@@ -157,11 +157,8 @@ class Hand:
 
     def tip_links(self):
         """Per closing joint, the link of its chain farthest from the palm (roller, pad, jaw)."""
-        depth = {}
-        for k in self.limits:  # deepest point of each link's collision box, along the hand axis
-            lo, hi = self.world.p.getAABB(self.body, k, physicsClientId=self.world.cid)
-            corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
-            depth[k] = self.to_hand(corners)[:, 2].max()
+        frame = self.frame()
+        depth = {k: self.link_box(k, frame)[:, 2].max() for k in self.limits}  # deepest point along the hand axis
         # ties (a pad flush with its jaw's end) go to the link further down the chain (higher index)
         return [max((k for k in self.limits if self._descends(k, j)), key=lambda k: (round(depth[k], 4), k))
                 for j in self.close_j]
@@ -181,10 +178,16 @@ class Hand:
             parent = self._parent[parent]
         return None
 
-    def to_hand(self, x):
-        """World point(s) x (..., 3) in the hand frame."""
-        pos, rot = self.frame()
+    def to_hand(self, x, frame=None):
+        """World point(s) x (..., 3) in the hand frame (`frame`: a pose from frame(), to reuse)."""
+        pos, rot = frame or self.frame()
         return (np.asarray(x) - pos) @ rot
+
+    def link_box(self, link, frame=None):
+        """The 8 corners (8, 3) of a link's world-aligned collision box, in the hand frame."""
+        lo, hi = self.world.p.getAABB(self.body, link, physicsClientId=self.world.cid)
+        corners = [[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])]
+        return self.to_hand(corners, frame)
 
     def frame(self):
         """Pose of the palm's URDF frame (the hand frame): position (3,), rotation matrix (3, 3)."""

@@ -63,12 +63,8 @@ def _inside_target(ctx, p):
 
 def _tip_radius(ctx):
     """Largest distance of any tip's collision box from the hand axis (m)."""
-    p, cid, r = ctx.world.p, ctx.world.cid, 0.0
-    for link in ctx.tips:
-        lo, hi = p.getAABB(ctx.hand.body, link, physicsClientId=cid)
-        corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
-        r = max(r, float(np.linalg.norm(ctx.hand.to_hand(corners)[:, :2], axis=1).max()))
-    return r
+    frame = ctx.hand.frame()
+    return max(float(np.linalg.norm(ctx.hand.link_box(link, frame)[:, :2], axis=1).max()) for link in ctx.tips)
 
 
 def cavity_radius(instance):

@@ -19,7 +19,7 @@ import numpy as np
 from .contact import sample_contacts
 from .errors import HarnessError
 from .hand import DOWN, Hand
-from .metrics import SlipTally, blowup, pose_error
+from .metrics import SlipTally, blowup, contact_load, pose_error
 from .quality import grasp_quality
 from .seeds import rng_for
 from .world import PhysicsSettings, World, add_object, pair_friction
@@ -162,15 +162,9 @@ class TrialContext:
 
     def tip_span(self):
         """(depth of the tips' centre below the palm, depth of their lowest point) in the hand frame, m."""
-        p, cid = self.world.p, self.world.cid
-        centres, lows = [], []
-        for link in self.tips:
-            lo, hi = p.getAABB(self.hand.body, link, physicsClientId=cid)
-            corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
-            local = self.hand.to_hand(corners)
-            centres.append(local[:, 2].mean())
-            lows.append(local[:, 2].max())
-        return float(np.mean(centres)), float(np.max(lows))
+        frame = self.hand.frame()
+        boxes = [self.hand.link_box(link, frame)[:, 2] for link in self.tips]
+        return float(np.mean([b.mean() for b in boxes])), float(np.max([b.max() for b in boxes]))
 
     def wrist_for_grip_height(self, grip_height):
         """World wrist position that puts the tips' centre at `grip_height` over the object, keeping
@@ -234,13 +228,14 @@ class TrialContext:
         if self.steps % SAMPLE_EVERY:
             return False
         w = self.world
-        self.last = sample_contacts(w, self.obj, self.hand.body)
+        state = w.link_state(self.obj, -1)
+        self.last = sample_contacts(w, self.obj, self.hand.body, obj_state=state)
         dt = self.control_dt
-        self.total.add(self.last, self.friction_of_link, dt)
+        load = contact_load(self.last, self.friction_of_link)
+        self.total.add(load, dt)
         if self.phases:
-            self.phases[-1].tally.add(self.last, self.friction_of_link, dt)
-        pos, _ = w.pose(self.obj)
-        v, spin = w.velocity(self.obj)
+            self.phases[-1].tally.add(load, dt)
+        pos, _, v, spin = state
         excess = self.last.depth - self.last.normal_force * self.compliance[self.last.links + 1]
         why = blowup(pos, v, spin, excess, self.instance.extents)
         if why is None and pos[2] < -0.05:
