@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["ContactSample", "sample_contacts", "point_velocity"]
+__all__ = ["ContactSample", "sample_contacts"]
 
 
 @dataclass(frozen=True)
@@ -45,14 +45,17 @@ class ContactSample:
         return np.linalg.norm(self.slip, axis=1)
 
 
-def point_velocity(com, v, w, x):
-    """Velocity (k, 3) of material points x (k, 3) of a rigid body with COM velocity v and spin w;
-    com, v and w are (3,) for one body or (k, 3), one row per point."""
-    r = x - com
-    w = np.broadcast_to(w, r.shape)
-    # w x r written out: np.cross costs about 40 us per call on these tiny arrays, this about 5
-    return v + np.column_stack((w[:, 1] * r[:, 2] - w[:, 2] * r[:, 1], w[:, 2] * r[:, 0] - w[:, 0] * r[:, 2],
-                                w[:, 0] * r[:, 1] - w[:, 1] * r[:, 0]))
+def _mover(com, v, w, dt):
+    """A body's motion as plain floats: start-of-step com, velocity and spin (see module doc)."""
+    return [float(com[i]) - float(v[i]) * dt for i in range(3)], [float(x) for x in v], [float(x) for x in w]
+
+
+def _point_velocity(mover, x):
+    """v + w x (x - com) of a mover at point x, in plain floats (a contact has few points: numpy's
+    per-call cost would be most of the time here)."""
+    (cx, cy, cz), (vx, vy, vz), (wx, wy, wz) = mover
+    rx, ry, rz = x[0] - cx, x[1] - cy, x[2] - cz
+    return vx + wy * rz - wz * ry, vy + wz * rx - wx * rz, vz + wx * ry - wy * rx
 
 
 _EMPTY = ContactSample(*(np.zeros((0, 3)),) * 2, np.zeros(0), np.zeros((0, 3)), np.zeros((0, 3)),
@@ -70,23 +73,26 @@ def sample_contacts(world, obj, other, link_states=None, obj_state=None):
     raw = [c for c in world.contacts(obj, other) if c[9] > 0.0]
     if not raw:
         return _EMPTY
-    # one array, one row per contact: on_obj (3), on_other (3), normal (3), distance, normal force,
-    # friction 1, direction 1 (3), friction 2, direction 2 (3), link on `other`
-    a = np.array([(*c[5], *c[6], *c[7], c[8], c[9], c[10], *c[11], c[12], *c[13], c[4]) for c in raw])
-    on_obj, on_other, normals = a[:, 0:3], a[:, 3:6], a[:, 6:9]  # normal on B points from B into A: into the object
-    points = (on_obj + on_other) / 2
-    fn = a[:, 10]
-    friction = a[:, 11:12] * a[:, 12:15] + a[:, 15:16] * a[:, 16:19]
-    links = a[:, 19].astype(int)
     dt = world.settings.time_step
     com, _, v, w = obj_state or world.link_state(obj, -1)
+    body = _mover(com, v, w, dt)
     states = {} if link_states is None else link_states
-    for link in set(links.tolist()):
-        if link not in states:
-            states[link] = world.link_state(other, link)
-    # per contact, the touching link's com, velocity and spin, stacked as (k, 3) arrays
-    lcom, lv, lw = (np.array([states[link][i] for link in links.tolist()]) for i in (0, 2, 3))
-    # each body's material point is taken on its own surface, against its start-of-step com
-    rel = point_velocity(com - v * dt, v, w, on_obj) - point_velocity(lcom - lv * dt, lv, lw, on_other)
-    slip = rel - np.sum(rel * normals, axis=1, keepdims=True) * normals
-    return ContactSample(points, normals, fn, friction, slip, links, -a[:, 9])
+    movers = {}
+    rows = []
+    for c in raw:
+        link, on_obj, on_other, n = c[4], c[5], c[6], c[7]  # normal on B points from B into A: into the object
+        if link not in movers:
+            if link not in states:
+                states[link] = world.link_state(other, link)
+            lcom, _, lv, lw = states[link]
+            movers[link] = _mover(lcom, lv, lw, dt)
+        # each body's material point is taken on its own surface, against its start-of-step com
+        va, vb = _point_velocity(body, on_obj), _point_velocity(movers[link], on_other)
+        rel = [va[i] - vb[i] for i in range(3)]
+        along = rel[0] * n[0] + rel[1] * n[1] + rel[2] * n[2]
+        f1, d1, f2, d2 = c[10], c[11], c[12], c[13]
+        rows.append((*((on_obj[i] + on_other[i]) / 2 for i in range(3)), *n, c[9],
+                     *(f1 * d1[i] + f2 * d2[i] for i in range(3)), *(rel[i] - along * n[i] for i in range(3)),
+                     link, -c[8]))
+    a = np.array(rows)
+    return ContactSample(a[:, 0:3], a[:, 3:6], a[:, 6], a[:, 7:10], a[:, 10:13], a[:, 13].astype(int), a[:, 14])

@@ -28,7 +28,7 @@ import signal
 import threading
 import time
 from collections.abc import Callable, Iterable, Iterator
-from contextlib import closing
+from contextlib import closing, contextmanager
 from dataclasses import dataclass
 from multiprocessing import connection
 
@@ -81,6 +81,20 @@ def _describe(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {exc}"
 
 
+@contextmanager
+def _ctrl_c_deferred():
+    """Hold Ctrl-C while a result is recorded, so a row is either recorded and counted or neither
+    (a Ctrl-C landing between the journal write and the count made them disagree)."""
+    can_block = threading.current_thread() is threading.main_thread() and hasattr(signal, "pthread_sigmask")
+    if can_block:
+        signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    try:
+        yield
+    finally:
+        if can_block:
+            signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
+
+
 def run_tasks(tasks: Iterable[Task], fn, *, on_result: Callable[[str, dict], object],
               workers: int | None = None, timeout: float | None = None, executor: str = "local",
               scheduler=None) -> RunReport:
@@ -94,8 +108,9 @@ def run_tasks(tasks: Iterable[Task], fn, *, on_result: Callable[[str, dict], obj
         with closing(iter_results(tasks, fn, workers=workers, timeout=timeout,
                                   executor=executor, scheduler=scheduler)) as results:
             for key, row in results:
-                on_result(key, row)
-                finished += 1
+                with _ctrl_c_deferred():
+                    on_result(key, row)
+                    finished += 1
     except KeyboardInterrupt:
         return RunReport(finished, interrupted=True)
     return RunReport(finished, interrupted=False)

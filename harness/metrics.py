@@ -70,17 +70,23 @@ def contact_load(sample, friction_of_link):
     ContactSample, or None without contact; `friction_of_link` maps link -> pair mu."""
     if sample.count == 0:
         return None
-    speeds = sample.slip_speed()
+    # per link: sum of normal forces, of force x slip speed, and the friction force vector;
+    # plain floats, as a grasp has a handful of contacts
+    sums = {}
+    for link, fn, speed, (fx, fy, fz) in zip(sample.links.tolist(), sample.normal_force.tolist(),
+                                            sample.slip_speed().tolist(), sample.friction_force.tolist()):
+        s = sums.setdefault(link, [0.0, 0.0, 0.0, 0.0, 0.0])
+        s[0] += fn
+        s[1] += fn * speed
+        s[2] += fx
+        s[3] += fy
+        s[4] += fz
     worst_slip, worst_use = 0.0, 0.0
-    for link in set(sample.links.tolist()):  # a loop: faster than grouping for the usual 2-4 links
-        mask = sample.links == link
-        fn = sample.normal_force[mask]
-        total = fn.sum()
+    for link, (total, weighted, fx, fy, fz) in sums.items():
         if total <= MIN_FRICTION_LOAD:
             continue
-        worst_slip = max(worst_slip, float(fn @ speeds[mask] / total))
-        friction = np.linalg.norm(sample.friction_force[mask].sum(axis=0))
-        worst_use = max(worst_use, float(friction / (friction_of_link[link] * total)))
+        worst_slip = max(worst_slip, weighted / total)
+        worst_use = max(worst_use, math.sqrt(fx * fx + fy * fy + fz * fz) / (friction_of_link[link] * total))
     return worst_slip, worst_use
 
 

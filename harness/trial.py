@@ -228,7 +228,9 @@ class TrialContext:
         if self.steps % SAMPLE_EVERY:
             return False
         w = self.world
-        state = w.link_state(self.obj, -1)
+        # the object's COM pose and velocity as the engine's tuples (cheaper than arrays, used twice)
+        state = (*w.p.getBasePositionAndOrientation(self.obj, physicsClientId=w.cid),
+                 *w.p.getBaseVelocity(self.obj, physicsClientId=w.cid))
         self.last = sample_contacts(w, self.obj, self.hand.body, obj_state=state)
         dt = self.control_dt
         load = contact_load(self.last, self.friction_of_link)
