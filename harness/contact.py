@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["ContactSample", "sample_contacts"]
+__all__ = ["ContactSample", "sample_contacts", "body_state"]
 
 
 @dataclass(frozen=True)
@@ -47,7 +47,7 @@ class ContactSample:
 
 def _mover(com, v, w, dt):
     """A body's motion as plain floats: start-of-step com, velocity and spin (see module doc)."""
-    return [float(com[i]) - float(v[i]) * dt for i in range(3)], [float(x) for x in v], [float(x) for x in w]
+    return [com[i] - v[i] * dt for i in range(3)], v, w
 
 
 def _point_velocity(mover, x):
@@ -62,11 +62,20 @@ _EMPTY = ContactSample(*(np.zeros((0, 3)),) * 2, np.zeros(0), np.zeros((0, 3)), 
                        np.zeros(0, dtype=int), np.zeros(0))
 
 
-def sample_contacts(world, obj, other, link_states=None, obj_state=None):
+def body_state(world, body, link):
+    """COM position, orientation, velocity and spin of a link (-1: the base), as engine tuples."""
+    p, cid = world.p, world.cid
+    if link == -1:
+        return (*p.getBasePositionAndOrientation(body, physicsClientId=cid), *p.getBaseVelocity(body, physicsClientId=cid))
+    s = p.getLinkState(body, link, computeLinkVelocity=1, physicsClientId=cid)
+    return s[0], s[1], s[6], s[7]
+
+
+def sample_contacts(world, obj, other, obj_state=None):
     """Contacts of body `obj` (as A) with body `other` (as B) and their slip velocities.
 
-    Call right after a step. `link_states` may pass a dict to share link queries between calls,
-    `obj_state` the object's `world.link_state(obj, -1)` when the caller has it already.
+    Call right after a step. `obj_state` may pass the object's (position, orientation, velocity,
+    spin) of its COM when the caller has it already.
     """
     # the engine keeps manifold points up to its breaking distance after bodies part; only
     # points that carried load in this step are contacts
@@ -74,17 +83,14 @@ def sample_contacts(world, obj, other, link_states=None, obj_state=None):
     if not raw:
         return _EMPTY
     dt = world.settings.time_step
-    com, _, v, w = obj_state or world.link_state(obj, -1)
+    com, _, v, w = obj_state or body_state(world, obj, -1)
     body = _mover(com, v, w, dt)
-    states = {} if link_states is None else link_states
     movers = {}
     rows = []
     for c in raw:
         link, on_obj, on_other, n = c[4], c[5], c[6], c[7]  # normal on B points from B into A: into the object
         if link not in movers:
-            if link not in states:
-                states[link] = world.link_state(other, link)
-            lcom, _, lv, lw = states[link]
+            lcom, _, lv, lw = body_state(world, other, link)
             movers[link] = _mover(lcom, lv, lw, dt)
         # each body's material point is taken on its own surface, against its start-of-step com
         va, vb = _point_velocity(body, on_obj), _point_velocity(movers[link], on_other)

@@ -55,7 +55,7 @@ class Hand:
         self.limits = {j: (i[8], i[9], i[10], i[11]) for j, i in enumerate(info)}  # lower, upper, effort, speed
         self._axis = {j: np.array(i[13]) for j, i in enumerate(info)}  # in the child link's frame
         self._parent = {j: i[16] for j, i in enumerate(info)}
-        self._lead = np.array([self.limits[j][3] for j in self.close_j]).mean() * CLOSE_LEAD_TIME
+        self._lead = float(np.mean([self.limits[j][3] for j in self.close_j])) * CLOSE_LEAD_TIME
         self.rollers = [RollerJoints(roll, self._pivot_of(roll), model.roller_radius) for roll in self.roll_j]
         for link_name, surface in model.surfaces.items():
             if link_name in self.link_of:
@@ -91,7 +91,7 @@ class Hand:
         p = self.world.p
         for j, target in zip(joints, targets):
             lower, upper, effort, speed = self.limits[j]
-            p.setJointMotorControl2(self.body, j, p.POSITION_CONTROL, targetPosition=float(np.clip(target, lower, upper)),
+            p.setJointMotorControl2(self.body, j, p.POSITION_CONTROL, targetPosition=min(max(float(target), lower), upper),
                                     force=effort * torque_scale, maxVelocity=speed, positionGain=gain,
                                     physicsClientId=self.world.cid)
 
@@ -99,13 +99,14 @@ class Hand:
         """Drive closing joints toward `fraction` of their range (1: fully closed, 0: fully open),
         synchronised, with their torque limit (times `torque_scale`). Call again each control step.
         Driving toward 0 from a closed pose spreads the fingers with full torque (inside grasps)."""
-        q = self.joint_positions(self.close_j)
-        goal = np.array([lo + fraction * (hi - lo) for lo, hi, *_ in (self.limits[j] for j in self.close_j)])
-        way = np.sign(goal - q.mean())
-        # each joint's target leads the mean position toward the goal, never past it
-        target = q.mean() + way * self._lead
-        target = np.where(way >= 0, np.minimum(target, goal), np.maximum(target, goal))
-        self.hold_closing(target, torque_scale)
+        states = self.world.p.getJointStates(self.body, self.close_j, physicsClientId=self.world.cid)
+        mean = sum(s[0] for s in states) / len(states)
+        targets = []
+        for j in self.close_j:  # each target leads the mean toward the joint's goal, never past it
+            lo, hi, *_ = self.limits[j]
+            goal = lo + fraction * (hi - lo)
+            targets.append(min(mean + self._lead, goal) if goal >= mean else max(mean - self._lead, goal))
+        self.hold_closing(targets, torque_scale)
 
     def closing_time(self):
         """Time (s) the slowest closing joint takes over its whole range at its speed limit."""

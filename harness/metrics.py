@@ -73,11 +73,11 @@ def contact_load(sample, friction_of_link):
     # per link: sum of normal forces, of force x slip speed, and the friction force vector;
     # plain floats, as a grasp has a handful of contacts
     sums = {}
-    for link, fn, speed, (fx, fy, fz) in zip(sample.links.tolist(), sample.normal_force.tolist(),
-                                            sample.slip_speed().tolist(), sample.friction_force.tolist()):
+    for link, fn, (sx, sy, sz), (fx, fy, fz) in zip(sample.links.tolist(), sample.normal_force.tolist(),
+                                                    sample.slip.tolist(), sample.friction_force.tolist()):
         s = sums.setdefault(link, [0.0, 0.0, 0.0, 0.0, 0.0])
         s[0] += fn
-        s[1] += fn * speed
+        s[1] += fn * math.sqrt(sx * sx + sy * sy + sz * sz)
         s[2] += fx
         s[3] += fy
         s[4] += fz

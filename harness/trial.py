@@ -5,7 +5,7 @@ The scene: a table whose top is at z = 0; the object resting on it (stable side 
 turned by the perturbation, settled); the hand pointing down above it, fingers open, its wrist
 driven like an arm's flange (hand.py). Every control input goes through `TrialContext`, which
 applies the actuator perturbations (a first-order lag on roller and pivot commands, a per-roller
-speed error) and samples the metrics after every physics step.
+speed error) and samples the metrics at every control tick (trial.SAMPLE_EVERY physics steps).
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from .contact import sample_contacts
+from .contact import body_state, sample_contacts
 from .errors import HarnessError
 from .hand import DOWN, Hand
 from .metrics import SlipTally, blowup, contact_load, pose_error
@@ -87,7 +87,7 @@ class TrialContext:
 
     def __init__(self, world: World, model, instance, perturbation: Perturbation, seed: int, on_step=None):
         self.world, self.model, self.instance, self.pert = world, model, instance, perturbation
-        self.on_step = on_step  # called as on_step(ctx) after every step's metrics (plots, replay frames)
+        self.on_step = on_step  # called as on_step(ctx) after every control tick (plots, replay frames)
         self.rng = rng_for(seed, "trial")
         world.add_table(size=(0.8, 0.8, 0.05), rolling=TABLE_ROLLING)
         self.obj = self._place_object()
@@ -218,19 +218,14 @@ class TrialContext:
         self._sent[what] = value
         return True
 
-    def step(self):
-        """One physics step with its actuation; every SAMPLE_EVERY steps also the metric sample,
-        the sanity check and the observer. Returns whether this step was sampled."""
-        if self.steps % SAMPLE_EVERY == 0:
-            self._actuate()
-        self.world.step()
-        self.steps += 1
-        if self.steps % SAMPLE_EVERY:
-            return False
+    def tick(self):
+        """One control tick: actuation, SAMPLE_EVERY physics steps, then the metric sample, the
+        sanity check and the observer."""
+        self._actuate()
+        self.world.step(SAMPLE_EVERY)
+        self.steps += SAMPLE_EVERY
         w = self.world
-        # the object's COM pose and velocity as the engine's tuples (cheaper than arrays, used twice)
-        state = (*w.p.getBasePositionAndOrientation(self.obj, physicsClientId=w.cid),
-                 *w.p.getBaseVelocity(self.obj, physicsClientId=w.cid))
+        state = body_state(w, self.obj, -1)  # engine tuples, used twice
         self.last = sample_contacts(w, self.obj, self.hand.body, obj_state=state)
         dt = self.control_dt
         load = contact_load(self.last, self.friction_of_link)
@@ -246,17 +241,15 @@ class TrialContext:
             raise Blowup(why)
         if self.on_step is not None:
             self.on_step(self)
-        return True
 
     def run(self, seconds, each=None):
-        """Step for `seconds`; `each(t)` runs at every sample (the control rate, before the next
-        step) and may return True to stop early."""
-        dt = self.world.settings.time_step
-        sampled = True
+        """Run for `seconds` (whole control ticks); `each(t)` runs before every tick and may return
+        True to stop early."""
+        dt = self.control_dt
         for k in range(max(1, round(seconds / dt))):
-            if sampled and each is not None and each(k * dt):
+            if each is not None and each(k * dt):
                 return False
-            sampled = self.step()
+            self.tick()
         return True
 
     # --- observations ----------------------------------------------------------------------
@@ -309,7 +302,7 @@ def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, set
     A fresh world is used unless `world` is given (it is reset first, so a worker can reuse one
     client; the numbers are the same either way). Simulation blow-ups give outcome `invalid`;
     exceptions from the harness's own code propagate (the campaign runner records them as `error`).
-    `on_step(ctx)` (a TrialContext) is called after every physics step; it may read anything
+    `on_step(ctx)` (a TrialContext) is called after every control tick; it may read anything
     (poses, `ctx.last` contacts, camera images) but must not command the world, or the trial's
     numbers change.
     """
