@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["ContactSample", "sample_contacts", "body_state"]
+__all__ = ["ContactSample", "sample_contacts"]
 
 
 @dataclass(frozen=True)
@@ -62,15 +62,6 @@ _EMPTY = ContactSample(*(np.zeros((0, 3)),) * 2, np.zeros(0), np.zeros((0, 3)), 
                        np.zeros(0, dtype=int), np.zeros(0))
 
 
-def body_state(world, body, link):
-    """COM position, orientation, velocity and spin of a link (-1: the base), as engine tuples."""
-    p, cid = world.p, world.cid
-    if link == -1:
-        return (*p.getBasePositionAndOrientation(body, physicsClientId=cid), *p.getBaseVelocity(body, physicsClientId=cid))
-    s = p.getLinkState(body, link, computeLinkVelocity=1, physicsClientId=cid)
-    return s[0], s[1], s[6], s[7]
-
-
 def sample_contacts(world, obj, other, obj_state=None):
     """Contacts of body `obj` (as A) with body `other` (as B) and their slip velocities.
 
@@ -83,14 +74,14 @@ def sample_contacts(world, obj, other, obj_state=None):
     if not raw:
         return _EMPTY
     dt = world.settings.time_step
-    com, _, v, w = obj_state or body_state(world, obj, -1)
+    com, _, v, w = obj_state or world.raw_state(obj, -1)
     body = _mover(com, v, w, dt)
     movers = {}
     rows = []
     for c in raw:
         link, on_obj, on_other, n = c[4], c[5], c[6], c[7]  # normal on B points from B into A: into the object
         if link not in movers:
-            lcom, _, lv, lw = body_state(world, other, link)
+            lcom, _, lv, lw = world.raw_state(other, link)
             movers[link] = _mover(lcom, lv, lw, dt)
         # each body's material point is taken on its own surface, against its start-of-step com
         va, vb = _point_velocity(body, on_obj), _point_velocity(movers[link], on_other)

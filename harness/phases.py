@@ -239,7 +239,7 @@ def roller_contacts(ctx):
     return out
 
 
-def _steer_towards(ctx, reference, feedforward, steer_pivots=True):
+def _steer_towards(ctx, reference, feedforward):
     """Set rollers (and pivots) for the hand-frame twist `feedforward` (v, w) plus pose feedback
     toward `reference` = (position, rotation) in the hand frame; returns the residual norm."""
     found = roller_contacts(ctx)
@@ -256,7 +256,7 @@ def _steer_towards(ctx, reference, feedforward, steer_pivots=True):
     # of its contact's wanted velocity along its current rolling direction (driving at the target
     # angle's speed while the pivot is half-way pushes the object the wrong way, and the feedback
     # then flips the pivots back and forth)
-    aim = steer(twist, origin, contacts, ctx.size / 2, steer_pivots, rtol=STEER_RTOL)
+    aim = steer(twist, origin, contacts, ctx.size / 2, rtol=STEER_RTOL)
     speeds = np.zeros(len(ctx.hand.rollers))
     pivots = ctx.pivot_cmd.copy()
     for (roller, c), angle in zip(found, aim.pivot_angles):
@@ -286,7 +286,7 @@ def _continuous(angle, previous, limits):
     return min([angle, *(min(max(a, lo), hi) for a in near)], key=lambda a: abs(a - previous))
 
 
-def _steered(ctx, p, log, axis, rate, duration, moves):
+def _steered(ctx, log, axis, rate, duration, moves):
     """Run a steered manoeuvre: `moves(t)` gives the reference motion in the hand frame as
     (displacement (3,), rotation vector (3,)); feedforward is its rate."""
     pos0, rot0 = ctx.object_in_hand()
@@ -319,7 +319,7 @@ def roll(ctx, p, log):
     """Turn the held object about `axis` (hand frame) by `angle` with the rollers alone, closed-loop."""
     axis = np.asarray(p.axis, dtype=float) / np.linalg.norm(p.axis)
     duration = p.angle / p.speed
-    turned = _steered(ctx, p, log, axis, np.concatenate([np.zeros(3), axis * p.speed]), duration,
+    turned = _steered(ctx, log, axis, np.concatenate([np.zeros(3), axis * p.speed]), duration,
                       lambda t: (np.zeros(3), axis * p.speed * t))
     ctx.rotation = (turned, p.angle)
     log.note = f"turned {math.degrees(turned):.1f} of {math.degrees(p.angle):.1f} deg"
@@ -331,7 +331,7 @@ def shift(ctx, p, log):
     direction = np.asarray(p.direction, dtype=float) / np.linalg.norm(p.direction)
     start = ctx.object_in_hand()[0]
     duration = p.distance / p.speed
-    _steered(ctx, p, log, np.zeros(3), np.concatenate([direction * p.speed, np.zeros(3)]), duration,
+    _steered(ctx, log, np.zeros(3), np.concatenate([direction * p.speed, np.zeros(3)]), duration,
              lambda t: (direction * p.speed * t, np.zeros(3)))
     moved = float((ctx.object_in_hand()[0] - start) @ direction)
     ctx.shifted = (moved, p.distance)

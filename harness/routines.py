@@ -25,7 +25,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from .fields import Problems, param, parse
-from .metrics import SlipTally
 from .phases import approach, close, draw_in, hold, inside_approach, lift, pivot, roll, shake, shift, spread
 from .trial import EJECT_SPEED
 
@@ -184,10 +183,9 @@ def describe(ctx, routine, outcome, reason):
     logs = {log.label: log for log in ctx.phases}
     for label in routine.labels():
         log = logs.get(label)
-        tally = log.tally if log else SlipTally()
         drift = log.drift if log and log.drift else (math.nan, math.nan)
         row[f"{label}_ok"] = bool(log and log.ok)
-        row[f"{label}_slip_mm"] = tally.columns()["slip_mm"] if log else math.nan
+        row[f"{label}_slip_mm"] = log.tally.columns()["slip_mm"] if log else math.nan
         row[f"{label}_drift_mm"] = drift[0] * 1e3
         row[f"{label}_drift_deg"] = math.degrees(drift[1])
     return row

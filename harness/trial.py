@@ -16,7 +16,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from .contact import body_state, sample_contacts
+from .contact import sample_contacts
 from .errors import HarnessError
 from .hand import DOWN, Hand
 from .metrics import SlipTally, blowup, contact_load, pose_error
@@ -225,7 +225,7 @@ class TrialContext:
         self.world.step(SAMPLE_EVERY)
         self.steps += SAMPLE_EVERY
         w = self.world
-        state = body_state(w, self.obj, -1)  # engine tuples, used twice
+        state = w.raw_state(self.obj, -1)  # engine tuples, used twice
         self.last = sample_contacts(w, self.obj, self.hand.body, obj_state=state)
         dt = self.control_dt
         load = contact_load(self.last, self.friction_of_link)
@@ -326,7 +326,7 @@ def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, set
         if own:
             world.close()
     row.update({
-        "gripper": model.summary.get("spec", model.name.split("[")[0]), "variant": model.name,
+        "gripper": model.name.split("[")[0], "variant": model.name,  # variants are named spec[key=value]
         "variant_key": model.key, "family": model.family, "object": instance.name,
         "object_set": instance.set_name, "kind": instance.kind, "seed": int(seed),
         **perturbation.columns(), "wall_s": time.perf_counter() - started,

@@ -140,11 +140,16 @@ class World:
 
     def link_state(self, body, link):
         """COM position, orientation, linear and angular velocity of a link (link -1: the base)."""
+        return tuple(np.array(x) for x in self.raw_state(body, link))
+
+    def raw_state(self, body, link):
+        """link_state as the engine's tuples: cheaper where a hot path reads a few floats."""
+        p, cid = self.p, self.cid
         if link == -1:
-            (pos, orn), (v, w) = self.pose(body), self.velocity(body)
-            return pos, orn, v, w
-        s = self.p.getLinkState(body, link, computeLinkVelocity=1, physicsClientId=self.cid)
-        return np.array(s[0]), np.array(s[1]), np.array(s[6]), np.array(s[7])
+            return (*p.getBasePositionAndOrientation(body, physicsClientId=cid),
+                    *p.getBaseVelocity(body, physicsClientId=cid))
+        s = p.getLinkState(body, link, computeLinkVelocity=1, physicsClientId=cid)
+        return s[0], s[1], s[6], s[7]
 
     def contacts(self, body_a, body_b, link_b=None):
         kw = {} if link_b is None else {"linkIndexB": link_b}

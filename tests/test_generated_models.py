@@ -104,6 +104,11 @@ def sim(pb):
     return pb
 
 
+def load_model(cid, model, folder):
+    """Write a GripperModel into `folder` and load it with a fixed base."""
+    return load_pb(cid, materialise(model.name, model.urdf, model.files, folder), fixed=True)
+
+
 def load_pb(cid, path, fixed=False):
     body = p.loadURDF(str(path), flags=LOAD_FLAGS, useFixedBase=fixed, physicsClientId=cid)
     assert body >= 0, f"pybullet could not load {path}"
@@ -374,7 +379,7 @@ def test_jaw_opening_and_closing(sim, tmp_path):
     raw = raw_variant(spec_file, variant)
     opening, stroke, pad_t = (raw["jaw"]["opening_mm"] * 1e-3, raw["jaw"]["stroke_mm"] * 1e-3,
                               raw["pad"]["thickness_mm"] * 1e-3)
-    body = load_pb(sim, materialise(model.name, model.urdf, model.files, tmp_path), fixed=True)
+    body = load_model(sim, model, tmp_path)
     links, joints = pb_links(sim, body), pb_joints(sim, body)
 
     def pad_gap(slide):
@@ -401,7 +406,7 @@ def roller_centres(cid, body, links, count):
 def test_tri_roller_rollers_120_degrees_apart(sim, tmp_path):
     key = sorted(k for k in roller_cases() if k.startswith("tri-roller"))[0]
     _, _, model = gripper_cases()[key]
-    body = load_pb(sim, materialise(model.name, model.urdf, model.files, tmp_path), fixed=True)
+    body = load_model(sim, model, tmp_path)
     centres = roller_centres(sim, body, pb_links(sim, body), 3)
     angles = sorted(math.degrees(math.atan2(c[1], c[0])) % 360 for c in centres)
     gaps = np.diff(angles + [angles[0] + 360])
@@ -419,7 +424,7 @@ def test_rollers_sit_where_the_spec_puts_them(key, sim, tmp_path):
     f = raw_variant(spec_file, variant)["finger"]
     n = f["count"]
     angles = f.get("angles_deg", [360.0 * i / n for i in range(n)])
-    body = load_pb(sim, materialise(model.name, model.urdf, model.files, tmp_path), fixed=True)
+    body = load_model(sim, model, tmp_path)
     palm_com = np.array(p.getDynamicsInfo(body, -1, physicsClientId=sim)[3])
     for i, c in enumerate(roller_centres(sim, body, pb_links(sim, body), n)):
         c = c + palm_com  # base position is the palm's COM; move to the palm link frame
@@ -456,7 +461,7 @@ def test_roll_and_pivot_directions(key, sim, tmp_path):
     spec_file, variant, model = gripper_cases()[key]
     f = raw_variant(spec_file, variant)["finger"]
     n, r = f["count"], f["roller"]["radius_mm"] * 1e-3
-    body = load_pb(sim, materialise(model.name, model.urdf, model.files, tmp_path), fixed=True)
+    body = load_model(sim, model, tmp_path)
     links, joints = pb_links(sim, body), pb_joints(sim, body)
     omega = 2.0
     tol = 1e-6 * omega * r
@@ -481,7 +486,7 @@ def test_roll_and_pivot_directions(key, sim, tmp_path):
 def test_pivot_keeps_roller_centre(key, sim, tmp_path):
     spec_file, variant, model = gripper_cases()[key]
     n = raw_variant(spec_file, variant)["finger"]["count"]
-    body = load_pb(sim, materialise(model.name, model.urdf, model.files, tmp_path), fixed=True)
+    body = load_model(sim, model, tmp_path)
     links, joints = pb_links(sim, body), pb_joints(sim, body)
     before = roller_centres(sim, body, links, n)
     for i in range(n):
@@ -494,7 +499,7 @@ def test_pivot_keeps_roller_centre(key, sim, tmp_path):
 def test_positive_flex_closes(key, sim, tmp_path):
     spec_file, variant, model = gripper_cases()[key]
     count = raw_variant(spec_file, variant)["finger"]["count"]
-    body = load_pb(sim, materialise(model.name, model.urdf, model.files, tmp_path), fixed=True)
+    body = load_model(sim, model, tmp_path)
     links, joints = pb_links(sim, body), pb_joints(sim, body)
     open_r = [math.hypot(c[0], c[1]) for c in roller_centres(sim, body, links, count)]
     for i in range(count):

@@ -216,6 +216,15 @@ def _transform(rot, offset):
     return np.block([[rot, np.asarray(offset, dtype=float)[:, None]], [np.zeros((1, 3)), np.ones((1, 1))]])
 
 
+def assert_combines_like(parts, meshes):
+    """combine(parts) has the volume, COM and inertia trimesh gives the union of the meshes."""
+    got = M.combine(parts)
+    union = trimesh.util.concatenate(meshes)
+    assert got.volume == pytest.approx(union.volume, rel=EXACT)
+    assert_point(got.com, union.center_mass, 1.0, EXACT)
+    assert_tensor(got.inertia, union.moment_inertia, EXACT)
+
+
 def test_combine_disjoint_boxes_vs_trimesh():
     rng = np.random.default_rng(5)
     parts, meshes = [], []
@@ -227,12 +236,8 @@ def test_combine_disjoint_boxes_vs_trimesh():
         # handbook box about its centre (checked above) as the part's own mass properties
         parts.append((M.MassProps(volume, np.zeros(3), M.box_inertia(volume, *dims)), offset, rot))
         meshes.append(trimesh.creation.box(extents=dims, transform=_transform(rot, offset)))
-    got = M.combine(parts)
-    union = trimesh.util.concatenate(meshes)
     # reference library: trimesh.Trimesh.mass_properties of the concatenated (disjoint) boxes
-    assert got.volume == pytest.approx(union.volume, rel=EXACT)
-    assert_point(got.com, union.center_mass, 1.0, EXACT)
-    assert_tensor(got.inertia, union.moment_inertia, EXACT)
+    assert_combines_like(parts, meshes)
 
 
 def test_combine_parts_with_their_own_com():
@@ -245,12 +250,8 @@ def test_combine_parts_with_their_own_com():
         offset = np.array([0.3 * k, 0.0, -0.1 * k])
         parts.append((M.polyhedron(hull.vertices, hull.faces), offset, rot))
         meshes.append(hull.copy().apply_transform(_transform(rot, offset)))
-    got = M.combine(parts)
-    union = trimesh.util.concatenate(meshes)
     # reference library: trimesh.Trimesh.mass_properties of the concatenated (disjoint) hulls
-    assert got.volume == pytest.approx(union.volume, rel=EXACT)
-    assert_point(got.com, union.center_mass, 1.0, EXACT)
-    assert_tensor(got.inertia, union.moment_inertia, EXACT)
+    assert_combines_like(parts, meshes)
 
 
 def test_combine_of_one_part_is_that_part():
