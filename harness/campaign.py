@@ -28,9 +28,10 @@ from .errors import SpecError
 from .fields import Problems, Span, param, parse, section
 from .seeds import rng_for
 from .specs import inside, load_toml, normalised
+from .world import CONTROL_HZ, PhysicsSettings
 
 __all__ = ["Campaign", "TrialTask", "Expansion", "load_campaign", "expand", "run_payload",
-           "failure_inputs", "stable_hash"]
+           "failure_inputs", "payload_settings", "physics_settings", "stable_hash", "PhysicsTable"]
 
 _LIST_KEYS = ("gripper", "routine")
 
@@ -80,6 +81,26 @@ class StopRules:
 
 
 @dataclass(frozen=True, kw_only=True)
+class PhysicsTable:
+    """The engine's numerics for every trial of the campaign (defaults: world.PhysicsSettings, from
+    the convergence study in the README)."""
+
+    solver_iterations: int = param("solver_iterations", "integer", ge=10, le=10000,
+                                   default=PhysicsSettings.solver_iterations,
+                                   doc="constraint-solver iterations per physics step")
+    step_hz: int = param("step_hz", "integer", ge=CONTROL_HZ, le=9600, default=PhysicsSettings.step_hz,
+                         doc=f"physics steps per second, a multiple of the {CONTROL_HZ} Hz control rate")
+
+    def check(self):
+        if self.step_hz % CONTROL_HZ:
+            yield "step_hz", (f"must be a multiple of the control rate {CONTROL_HZ} Hz (e.g. 240, 480, 960); "
+                              f"got {self.step_hz}")
+
+    def settings(self):
+        return PhysicsSettings(step_hz=self.step_hz, solver_iterations=self.solver_iterations)
+
+
+@dataclass(frozen=True, kw_only=True)
 class CampaignFile:
     name: str = param("name", "text")
     description: str = param("description", "text", default="")
@@ -92,6 +113,7 @@ class CampaignFile:
     timeout_s: float = param("timeout_s", gt=0, default=120.0, doc="time limit of one trial")
     perturbation: PerturbationRanges = section("perturbation", optional=True)
     stop: StopRules = section("stop", optional=True)
+    physics: PhysicsTable = section("physics", optional=True)
 
     def check(self):
         if not self.objects:
@@ -137,12 +159,13 @@ class Campaign:
     routines: tuple[RoutineUse, ...]
     perturbation: PerturbationRanges
     stop: StopRules | None
+    physics: PhysicsSettings
     raw: dict = field(repr=False)
 
     def fingerprint(self):
         """Hash of the file and of what it resolves to (variant parameters, object sets, routines), so a
         run folder is only resumed by the same campaign on the same models, wherever the files live."""
-        return stable_hash(self.raw, [[m.key for m in models] for _, models in self.grippers],
+        return stable_hash(self.raw, self.physics.record(), [[m.key for m in models] for _, models in self.grippers],
                            [[s.name, s.seed, normalised(s.entries)] for s, _ in self.object_sets],
                            [[u.routine.name, normalised(u.routine.params)] for u in self.routines])
 
@@ -161,6 +184,7 @@ class Campaign:
                          for u in self.routines],
             "perturbation": normalised(self.perturbation),
             "stop": normalised(self.stop) if self.stop else None,
+            "physics": self.physics.record(),
             "source": self.raw,
         }
 
@@ -183,8 +207,9 @@ def load_campaign(path) -> Campaign:
     routines = _routines(path, raw, problems)
     sets = _object_sets(base, top.objects if top else (), problems)
     problems.raise_if_any()
+    physics = (top.physics or PhysicsTable()).settings()
     return Campaign(path, top.name, top.description, top.seed, top.trials, top.timeout_s, grippers, sets,
-                    routines, top.perturbation or PerturbationRanges(), top.stop, raw)
+                    routines, top.perturbation or PerturbationRanges(), top.stop, physics, raw)
 
 
 def _root(path, root, problems):
@@ -354,13 +379,13 @@ def expand(campaign: Campaign) -> Expansion:
                                 "variant": model.name, "object_set_file": str(object_set.file),
                                 "object_set": object_set.name, "object": inst.name,
                                 "routine": use.routine.name, "routine_table": use.table,
-                                "perturbation": normalised(pert)}))
+                                "perturbation": normalised(pert), "physics": campaign.physics.record()}))
     return Expansion(tuple(tasks), len(skipped) * campaign.trials, tuple(skipped))
 
 
 # --- workers -----------------------------------------------------------------------------------
 
-_CACHE: dict = {}  # per process: loaded variants, instances, routines and one physics world
+_CACHE: dict = {}  # per process: loaded variants, instances, routines and a physics world per setting
 
 
 def _cached(key, make):
@@ -391,10 +416,25 @@ def run_payload(payload: dict) -> dict:
     inst = _instance(payload["object_set_file"], payload["object"])
     routine = _cached(("routine", payload["routine"], json.dumps(payload["routine_table"], sort_keys=True)),
                       lambda: make_routine(payload["routine"], payload["routine_table"]))
-    world = _cached("world", World)
+    settings = payload_settings(payload)
+    world = _cached(("world", settings), lambda: World(settings))
     row = run_trial(model, inst, routine, Perturbation(**payload["perturbation"]), seed=payload["seed"],
-                    world=world)
+                    settings=settings, world=world)
     return {**failure_inputs(payload), **row}
+
+
+def physics_settings(table, file="<physics>") -> PhysicsSettings:
+    """PhysicsSettings from a [physics] table (file units); SpecError on bad input."""
+    problems = Problems(file)
+    parsed = parse(PhysicsTable, table, problems)
+    problems.raise_if_any()
+    return parsed.settings()
+
+
+def payload_settings(payload: dict) -> PhysicsSettings:
+    """The physics settings a payload runs with (payloads of runs made before settings were
+    recorded run with the settings of that time: 100 iterations at 240 Hz)."""
+    return PhysicsSettings(**payload.get("physics", {"solver_iterations": 100, "step_hz": 240}))
 
 
 def failure_inputs(payload: dict) -> dict:

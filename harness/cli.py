@@ -34,7 +34,11 @@ def _parser():
     t.add_argument("--object", required=True, metavar="NAME", help="object instance name (see `show OBJECTS`)")
     t.add_argument("--routine", default="draw-in-grasp", metavar="NAME",
                    help="draw-in-grasp (default), pinch-lift, roll, pivot-and-roll, shift, hold-under-shake, inside-grasp")
-    t.add_argument("--variant", metavar="NAME", help="variant name (see `show GRIPPER`); default: the first")
+    t.add_argument("--variant", metavar="NAME", help="variant name (see `show GRIPPER`); default: the one with "
+                                                      "the spec's own values, else the first of its sweep")
+    t.add_argument("--physics", action="append", default=[], metavar="KEY=VALUE",
+                   help="engine numerics as in a campaign's [physics] table, e.g. --physics solver_iterations=400 "
+                        "--physics step_hz=480 (default: the campaign defaults)")
     t.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                    help="a routine parameter in file units, e.g. --set angle_deg=450 (repeatable)")
     t.add_argument("--seed", type=int, default=0, help="trial seed (default 0)")
@@ -47,6 +51,8 @@ def _parser():
     register_campaign(sub)
     from .report_commands import register as register_report
     register_report(sub)
+    from .convergence import register as register_convergence
+    register_convergence(sub)
     from .bench import register as register_bench
     register_bench(sub)
     return p
@@ -57,12 +63,13 @@ def main(argv=None):
     from .errors import HarnessError, SpecError
     from .analysis import commands as analysis
     from . import campaign_commands as campaign
-    from . import bench
+    from . import bench, convergence
     from . import report_commands as report
     handlers = {"check": cmd_check, "build": cmd_build, "show": cmd_show, "try": cmd_try,
                 "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank,
                 "plan": campaign.cmd_plan, "run": campaign.cmd_run, "export": campaign.cmd_export,
-                "report": report.cmd_report, "replay": report.cmd_replay, "bench": bench.cmd_bench}
+                "report": report.cmd_report, "replay": report.cmd_replay, "bench": bench.cmd_bench,
+                "converge": convergence.cmd_converge, "crosscheck": convergence.cmd_crosscheck}
     try:
         return handlers[args.command](args)
     except SpecError as exc:
@@ -159,10 +166,19 @@ def cmd_try(args):
     from .objects import generate
     from .routines import make_routine
     from .specs import load_any, load_gripper
+    from .campaign import physics_settings
     from .table import format_table
     from .trial import run_trial
-    models = build_models(load_gripper(args.gripper))
-    model = _named(models, args.variant, "--variant", args.gripper) if args.variant else models[0]
+    spec = load_gripper(args.gripper)
+    models = build_models(spec)
+    if args.variant:
+        model = _named(models, args.variant, "--variant", args.gripper)
+    else:
+        model = next((m for m in models if m.name == spec.own), models[0])
+        if len(models) > 1:
+            why = "the spec's own values" if model.name == spec.own else "the first of the sweep"
+            print(f"variant: {model.name} ({why}; --variant picks another)", file=sys.stderr)
+    settings = physics_settings(_routine_table(args.physics), "--physics")
     instance = _named(generate(load_any(args.objects)), args.object, "--object", args.objects)
     routine = make_routine(args.routine, _routine_table(args.set), file="--set", prefix="")
     problem = routine.unsuitable(model, instance)
@@ -172,7 +188,7 @@ def cmd_try(args):
     if args.plot:
         from .plots import TrialRecorder
         recorder = TrialRecorder()
-    row = run_trial(model, instance, routine, seed=args.seed, on_step=recorder)
+    row = run_trial(model, instance, routine, seed=args.seed, on_step=recorder, settings=settings)
     if args.plot:
         from .plots import trial_plot
         trial_plot(recorder, args.plot, title=f"{model.name} / {instance.name} / {routine.name} / seed {args.seed}")

@@ -4,8 +4,10 @@ Slip (see contact.py for how each contact's slip velocity is measured): at each 
 links touching the object are taken one by one; a link's slip speed is the normal-force-weighted
 mean over its contact points (one patch of a pad reports up to four manifold points: summing them
 would count one sliding patch four times). The sample's slip speed is the largest link's, i.e. the
-worst contact. Slip distance is its integral over the time the object is touched, the peak is its
-maximum, and the slipping share is the part of the contact time above SLIP_NOISE_FLOOR.
+worst contact; the peak is its maximum. Slip distance is the sum over control intervals of the
+largest link's tangential slip displacement over the interval (contact.py: the motion of the
+touching material points, not a sampled speed held for the interval), and the slipping share is
+the part of the contact time whose mean slip speed exceeds SLIP_NOISE_FLOOR.
 
 Friction use of a link is |sum of its friction forces| / (mu x sum of its normal forces): 1 means
 the contact is on the edge of its friction cone (sliding or about to). Mean over contact time and
@@ -41,15 +43,16 @@ class SlipTally:
     use_integral: float = 0.0  # friction use x s
     use_peak: float = 0.0
 
-    def add(self, load, dt):
-        """One sample's `contact_load` (None when nothing touched) held for `dt` seconds."""
+    def add(self, load, dt, slipped=0.0):
+        """One control interval of `dt` seconds: the sample's `contact_load` at its end (None when
+        nothing touched) and the slip displacement `slipped` (m) over it."""
+        self.slip_distance += slipped
         if load is None:
             return
         worst_slip, worst_use = load
-        self.slip_distance += worst_slip * dt
         self.slip_peak = max(self.slip_peak, worst_slip)
         self.contact_time += dt
-        self.slipping_time += dt if worst_slip > SLIP_NOISE_FLOOR else 0.0
+        self.slipping_time += dt if slipped > SLIP_NOISE_FLOOR * dt else 0.0
         self.use_integral += worst_use * dt
         self.use_peak = max(self.use_peak, worst_use)
 

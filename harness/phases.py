@@ -133,7 +133,7 @@ def draw_in(ctx, p, log):
             return True  # seated against the palm or a finger
         if not p.seat and depth <= _roller_depth(ctx):
             return True  # centre level with the rollers: a fingertip grasp
-        dt = ctx.world.settings.time_step
+        dt = ctx.control_dt  # `stopped` runs once per control tick
         still[0] = still[0] + dt if (still[1] - depth) / dt < STILL_SPEED else 0.0
         still[1] = depth
         return t > 0.2 and still[0] > 0.1

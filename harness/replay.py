@@ -71,22 +71,10 @@ def replay_command(run, trial_key, *extra):
 
 def open_trial(run, trial_key, campaign_file=None) -> TrialSource:
     """The trial of `run` whose key is `trial_key` (or a unique prefix of it)."""
-    from .campaign import load_campaign
     from .journal import Journal
-    from .runs import read_campaign
+    from .runs import run_campaign_of
     run = Path(run)
-    record = read_campaign(run)
-    # as given on the command line, else where it was when the run was made
-    candidates = [campaign_file] if campaign_file else [record.get("file", ""), record.get("path", "")]
-    file = next((Path(f) for f in candidates if f and Path(f).is_file()), Path(candidates[0] or ""))
-    if not file.is_file():
-        raise HarnessError(f"the campaign file {file} that {run} was run from is not found (from {Path.cwd()}); "
-                           "pass --campaign FILE")
-    campaign = load_campaign(file)
-    if campaign.fingerprint() != record.get("campaign_hash"):
-        raise HarnessError(f"{file} no longer resolves to the campaign {run} was run from (hash "
-                           f"{campaign.fingerprint()}, run {record.get('campaign_hash')}); a replay would "
-                           "test other models")
+    record, campaign = run_campaign_of(run, campaign_file, "a replay would test other models")
     task = find_task(campaign, trial_key)
     with Journal(run, create=False) as journal:
         logged = next((row for row in journal.rows() if row.get("trial_key") == task.trial_key), None)
@@ -118,11 +106,12 @@ def _inputs(campaign, payload):
 
 def simulate(source: TrialSource, on_step=None) -> dict:
     """Run the trial in a fresh physics client; its row as the journal would hold it."""
-    from .campaign import failure_inputs
+    from .campaign import failure_inputs, payload_settings
     from .journal import to_json
     from .trial import run_trial
     model, inst, routine, pert, seed = _inputs(source.campaign, source.payload)
-    row = {**failure_inputs(source.payload), **run_trial(model, inst, routine, pert, seed=seed, on_step=on_step)}
+    row = {**failure_inputs(source.payload), **run_trial(model, inst, routine, pert, seed=seed, on_step=on_step,
+                                                         settings=payload_settings(source.payload))}
     return json.loads(to_json(row))  # the journal's own round trip, so types compare like for like
 
 

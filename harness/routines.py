@@ -164,7 +164,10 @@ def make_routine(name, table=None, file="<routine>", prefix=""):
 
 def describe(ctx, routine, outcome, reason):
     """The trial's flat row: outcome, whole-trial metrics and each phase's own columns."""
-    drifts = [log.drift for log in ctx.phases if log.drift is not None]
+    # drift is the pose error of an object that is still in the hand: a dropped or thrown object's
+    # "drift" measures its fall, not the grasp
+    in_hand = outcome in ("held", "stalled")
+    drifts = [log.drift for log in ctx.phases if log.drift is not None and in_hand]
     quality = ctx.grasp_quality
     row = {
         "routine": routine.name, "outcome": outcome, "success": outcome == "held", "reason": reason,
@@ -183,7 +186,7 @@ def describe(ctx, routine, outcome, reason):
     logs = {log.label: log for log in ctx.phases}
     for label in routine.labels():
         log = logs.get(label)
-        drift = log.drift if log and log.drift else (math.nan, math.nan)
+        drift = log.drift if log and log.drift and in_hand else (math.nan, math.nan)
         row[f"{label}_ok"] = bool(log and log.ok)
         row[f"{label}_slip_mm"] = log.tally.columns()["slip_mm"] if log else math.nan
         row[f"{label}_drift_mm"] = drift[0] * 1e3

@@ -16,7 +16,7 @@ from .errors import HarnessError
 from .journal import JOURNAL_NAME, Journal
 
 __all__ = ["CAMPAIGN_NAME", "STRING_COLUMNS", "FLOAT_COLUMNS", "EXPORTS", "new_run_folder", "write_campaign",
-           "read_campaign", "environment", "load_run", "export"]
+           "read_campaign", "run_campaign_of", "environment", "load_run", "export"]
 
 CAMPAIGN_NAME = "campaign.json"
 EXPORTS = ("csv", "parquet")
@@ -89,6 +89,24 @@ def read_campaign(folder) -> dict:
     if not path.is_file():
         raise HarnessError(f"{folder} is not a run folder (no {CAMPAIGN_NAME})")
     return json.loads(path.read_text(encoding="utf-8"))
+
+
+def run_campaign_of(run, campaign_file=None, why="the trials would differ"):
+    """(campaign.json record, loaded Campaign) of a run: the campaign file as given, else where it was
+    when the run was made; it must still resolve to the hash the run recorded."""
+    from .campaign import load_campaign
+    run = Path(run)
+    record = read_campaign(run)
+    candidates = [campaign_file] if campaign_file else [record.get("file", ""), record.get("path", "")]
+    file = next((Path(f) for f in candidates if f and Path(f).is_file()), Path(candidates[0] or ""))
+    if not file.is_file():
+        raise HarnessError(f"the campaign file {file} that {run} was run from is not found (from {Path.cwd()}); "
+                           "pass --campaign FILE")
+    campaign = load_campaign(file)
+    if campaign.fingerprint() != record.get("campaign_hash"):
+        raise HarnessError(f"{file} no longer resolves to the campaign {run} was run from (hash "
+                           f"{campaign.fingerprint()}, run {record.get('campaign_hash')}); {why}")
+    return record, campaign
 
 
 def load_run(path):

@@ -84,6 +84,7 @@ class GripperSpec:
     family: str
     description: str
     variants: tuple[Variant, ...]
+    own: str | None = None  # name of the variant whose parameters are the spec's own (unswept) values
 
 
 def _family_problems(raw, problems):
@@ -194,7 +195,8 @@ def load_gripper(path, raw=None):
     if base is not None and hasattr(family, "check_files"):
         family.check_files(base, path, problems)
     problems.raise_if_any()
-    return GripperSpec(path, str(name), raw["family"], description, tuple(variants))
+    own = next((v.name for v in variants if v.params == base), None)
+    return GripperSpec(path, str(name), raw["family"], description, tuple(variants), own)
 
 
 def load_any(path):

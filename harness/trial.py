@@ -5,7 +5,8 @@ The scene: a table whose top is at z = 0; the object resting on it (stable side 
 turned by the perturbation, settled); the hand pointing down above it, fingers open, its wrist
 driven like an arm's flange (hand.py). Every control input goes through `TrialContext`, which
 applies the actuator perturbations (a first-order lag on roller and pivot commands, a per-roller
-speed error) and samples the metrics at every control tick (trial.SAMPLE_EVERY physics steps).
+speed error) and samples the metrics at every control tick (world.CONTROL_HZ, a whole number of
+physics steps).
 """
 
 from __future__ import annotations
@@ -22,7 +23,7 @@ from .hand import DOWN, Hand
 from .metrics import SlipTally, blowup, contact_load, pose_error
 from .quality import grasp_quality
 from .seeds import rng_for
-from .world import PhysicsSettings, World, add_object, pair_friction
+from .world import CONTROL_HZ, PhysicsSettings, World, add_object, pair_friction
 
 __all__ = ["Perturbation", "TrialContext", "Blowup", "run_trial", "OUTCOMES"]
 
@@ -38,9 +39,10 @@ TABLE_CLEARANCE = 0.003  # m; lowest gap between a fingertip and the table at th
 # tube; without it a round object set down lying keeps rolling from the smallest disturbance.
 TABLE_ROLLING = 5e-5
 # The controller (phase logic, commands, actuator lag) and the metrics, sanity checks and observers
-# run every SAMPLE_EVERY physics steps: 60 Hz at the default 240 Hz step, a servo rate. The closing
-# lead (hand.CLOSE_LEAD_TIME = 1/60 s of travel) is sized so fingers still close at full speed.
-SAMPLE_EVERY = 4
+# run at world.CONTROL_HZ (60 Hz, a servo rate), every settings.steps_per_tick physics steps. The
+# closing lead (hand.CLOSE_LEAD_TIME = 1/60 s of travel) is sized so fingers still close at full speed.
+BRAKE_SPEED = 0.01  # rad/s; 0.1 mm/s at a 12 mm roller, far below the slip noise floor
+BRAKE_GAIN = 30.0  # 1/s; a stopped roller returns to its stopping angle with a 33 ms time constant
 EJECT_SPEED = 0.5  # m/s; an object leaving the hand faster than this was thrown, not dropped
 
 
@@ -114,6 +116,7 @@ class TrialContext:
         n = len(self.hand.rollers)
         self.speed_factor = 1.0 + perturbation.speed_noise * self.rng.uniform(-1.0, 1.0, n)
         self.roller_cmd, self.roller_out = np.zeros(n), np.zeros(n)
+        self.brake_at = np.full(n, np.nan)  # angle (rad) each stopped roller is held at
         self.pivot_cmd = np.zeros(len(self.hand.pivot_j))
         self.pivot_out = self.pivot_cmd.copy()
         self.grip = None  # (fraction, torque_scale) while the fingers are driven
@@ -179,7 +182,7 @@ class TrialContext:
     @property
     def control_dt(self):
         """Period (s) of the controller: phase callbacks, commands and metric samples."""
-        return self.world.settings.time_step * SAMPLE_EVERY
+        return 1.0 / CONTROL_HZ
 
     def move_wrist(self, position):
         self.hand.move_wrist(position, self.wrist_orientation)
@@ -191,14 +194,18 @@ class TrialContext:
         self.pivot_cmd = np.broadcast_to(np.asarray(angles, dtype=float), self.pivot_cmd.shape).copy()
 
     def _actuate(self):
-        """Send the commands of one control tick (every SAMPLE_EVERY steps; a motor keeps its last
+        """Send the commands of one control tick (a motor keeps its last
         command, so unchanged roller, pivot and clamp commands are not sent again)."""
         dt = self.control_dt
         gain = 1.0 if self.pert.actuator_lag <= 0 else 1.0 - math.exp(-dt / self.pert.actuator_lag)
         self.roller_out += gain * (self.roller_cmd * self.speed_factor - self.roller_out)
+        # a lagging roller told to stop comes to rest and brakes once it is slower than BRAKE_SPEED
+        self.roller_out[(self.roller_cmd == 0.0) & (np.abs(self.roller_out) < BRAKE_SPEED)] = 0.0
         self.pivot_out += gain * (self.pivot_cmd - self.pivot_out)
-        if len(self.roller_out) and self._changed("rollers", self.roller_out):
-            self.hand.set_rollers(self.roller_out)
+        if len(self.roller_out):
+            speeds = self._braked(self.roller_out)
+            if self._changed("rollers", speeds):
+                self.hand.set_rollers(speeds)
         if len(self.pivot_out) and self._changed("pivots", self.pivot_out):
             self.hand.set_pivots(self.pivot_out)
         if self.grip is None:
@@ -211,6 +218,22 @@ class TrialContext:
             self._sent.pop("fingers", None)
             self.hand.close(*self.grip)
 
+    def _braked(self, speeds):
+        """Roller speed commands with stopped rollers held where they stopped. A velocity motor
+        told to stop lets a loaded roller creep wherever the solver has not converged (2.5 mm
+        under a held ball in a 1 s hold at 100 iterations, measured), so a stopped roller is
+        steered back to its stopping angle at BRAKE_GAIN. (The engine's position motor holds too,
+        but it upsets the contact forces: a finger's moment balance was off by up to 17 %.)"""
+        stopped = speeds == 0.0
+        if not stopped.any():
+            self.brake_at[:] = np.nan
+            return speeds
+        angles = self.hand.joint_positions(self.hand.roll_j)
+        self.brake_at[~stopped] = np.nan
+        fresh = stopped & np.isnan(self.brake_at)
+        self.brake_at[fresh] = angles[fresh]
+        return np.where(stopped, BRAKE_GAIN * (self.brake_at - angles), speeds)
+
     def _changed(self, what, value):
         value = tuple(value) if isinstance(value, np.ndarray) else value
         if self._sent.get(what) == value:
@@ -219,19 +242,27 @@ class TrialContext:
         return True
 
     def tick(self):
-        """One control tick: actuation, SAMPLE_EVERY physics steps, then the metric sample, the
+        """One control tick: actuation, the tick's physics steps, then the metric sample, the
         sanity check and the observer."""
         self._actuate()
-        self.world.step(SAMPLE_EVERY)
-        self.steps += SAMPLE_EVERY
         w = self.world
+        n, step = w.settings.steps_per_tick, w.settings.time_step
+        # slip distance is integrated over every physics step: held from a 60 Hz sample it read up
+        # to a third low in transients (slip that starts and stops between samples)
+        slipped = 0.0
+        for _ in range(n - 1):
+            w.step()
+            slipped += self._slip_speed(sample_contacts(w, self.obj, self.hand.body)) * step
+        w.step()
+        self.steps += n
         state = w.raw_state(self.obj, -1)  # engine tuples, used twice
         self.last = sample_contacts(w, self.obj, self.hand.body, obj_state=state)
         dt = self.control_dt
         load = contact_load(self.last, self.friction_of_link)
-        self.total.add(load, dt)
+        slipped += (load[0] if load else 0.0) * step
+        self.total.add(load, dt, slipped)
         if self.phases:
-            self.phases[-1].tally.add(load, dt)
+            self.phases[-1].tally.add(load, dt, slipped)
         pos, _, v, spin = state
         excess = self.last.depth - self.last.normal_force * self.compliance[self.last.links + 1]
         why = blowup(pos, v, spin, excess, self.instance.extents)
@@ -241,6 +272,10 @@ class TrialContext:
             raise Blowup(why)
         if self.on_step is not None:
             self.on_step(self)
+
+    def _slip_speed(self, sample):
+        load = contact_load(sample, self.friction_of_link)
+        return load[0] if load else 0.0
 
     def run(self, seconds, each=None):
         """Run for `seconds` (whole control ticks); `each(t)` runs before every tick and may return
@@ -329,6 +364,7 @@ def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, set
         "gripper": model.name.split("[")[0], "variant": model.name,  # variants are named spec[key=value]
         "variant_key": model.key, "family": model.family, "object": instance.name,
         "object_set": instance.set_name, "kind": instance.kind, "seed": int(seed),
+        "solver_iterations": world.settings.solver_iterations, "step_hz": world.settings.step_hz,
         **perturbation.columns(), "wall_s": time.perf_counter() - started,
     })
     return row

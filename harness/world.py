@@ -16,23 +16,47 @@ from __future__ import annotations
 
 import math
 import os
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 
 import numpy as np
 
 from .constants import GRAVITY
 
-__all__ = ["PhysicsSettings", "World", "pair_friction", "model_cache"]
+__all__ = ["CONTROL_HZ", "PhysicsSettings", "World", "pair_friction", "model_cache"]
+
+
+CONTROL_HZ = 60  # Hz; the controller and the metrics run at this servo rate whatever the physics step
 
 
 @dataclass(frozen=True)
 class PhysicsSettings:
-    time_step: float = 1.0 / 240.0  # s; the engine's default, small enough for 5 g objects at this stiffness
-    solver_iterations: int = 100  # more than the default 50: stacked contacts in a grasp converge better
+    """The engine's numerics and the bench's constants. The defaults come from the convergence study
+    recorded in the README (`grasp-harness converge`): the cheapest setting whose campaign results
+    agree with much finer numerics within the tolerances of analysis/numerics.py."""
+
+    step_hz: int = 240  # physics steps per second; a multiple of CONTROL_HZ
+    solver_iterations: int = 100  # constraint-solver iterations per step
     gravity: float = GRAVITY  # m/s^2 along -z
     max_joint_speed: float = 1000.0  # rad/s; lifts the engine's 100 rad/s cap so roller limits come from specs
     table_friction: float = 1.0  # the table's own mu; pair value with an object is sqrt(mu_table mu_obj)
+
+    @property
+    def time_step(self):
+        """Physics step (s)."""
+        return 1.0 / self.step_hz
+
+    @property
+    def steps_per_tick(self):
+        """Physics steps per control tick."""
+        return self.step_hz // CONTROL_HZ
+
+    def refined(self, iterations=4, step=2):
+        """These settings with `iterations` x the solver iterations and the step divided by `step`."""
+        return replace(self, solver_iterations=self.solver_iterations * iterations, step_hz=self.step_hz * step)
+
+    def label(self):
+        return f"{self.solver_iterations} it @ {self.step_hz} Hz"
 
     def record(self):
         return asdict(self)
@@ -148,7 +172,9 @@ class World:
         if link == -1:
             return (*p.getBasePositionAndOrientation(body, physicsClientId=cid),
                     *p.getBaseVelocity(body, physicsClientId=cid))
-        s = p.getLinkState(body, link, computeLinkVelocity=1, physicsClientId=cid)
+        # without forward kinematics a link's pose is the one from before the last step's
+        # integration, a step behind its velocity and behind the base's pose (measured in 3.2.7)
+        s = p.getLinkState(body, link, computeLinkVelocity=1, computeForwardKinematics=1, physicsClientId=cid)
         return s[0], s[1], s[6], s[7]
 
     def contacts(self, body_a, body_b, link_b=None):

@@ -179,7 +179,8 @@ def summary_text(df, fmt="text"):
     excluded = ", ".join(f"{int(table[o].sum())} {o}" for o in NOT_VALID)
     notes = [f"Success rates count valid trials only: {excluded} trial(s) are counted above but excluded "
              "from success rates and metrics.",
-             "Interval: 95 % Wilson score. Metrics over valid trials: p50 median, p90 90th percentile."]
+             "Interval: 95 % Wilson score. p50 median, p90 90th percentile; slip over held trials, drift over "
+             "trials that kept the object in the hand (held or stalled), epsilon over valid trials."]
     return _render(display, fmt, notes)
 
 

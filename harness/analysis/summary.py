@@ -50,8 +50,9 @@ def summary(df, confidence=0.95):
     """One row per variant x object x routine: counts, success rate with a Wilson interval, metrics.
 
     Columns: the cell keys, trials, valid, successes, success_rate, success_lo, success_hi, one
-    count column per outcome, and `<metric>_p50` / `<metric>_p90` for slip_mm, drift_mm and
-    drift_deg plus epsilon_p50, all over valid trials (NaN values ignored).
+    count column per outcome, and `<metric>_p50` / `<metric>_p90` for slip_mm (over held trials),
+    drift_mm and drift_deg (over trials that kept the object in the hand) plus epsilon_p50 (over
+    valid trials); NaN values ignored.
     """
     checked(df, SUMMARY_COLUMNS)
     valid = valid_mask(df)
@@ -63,7 +64,10 @@ def summary(df, confidence=0.95):
     out["success_lo"], out["success_hi"] = wilson_interval(out["successes"], out["valid"], confidence)
     counts = df.groupby([*CELL, "outcome"], sort=False).size().unstack("outcome", fill_value=0)
     out = out.join(counts.reindex(columns=list(OUTCOMES), fill_value=0))
-    out = out.join(_metric_quantiles(df[valid]))
+    # slip of a missed trial comes from glancing touches and would pull a cell's median toward
+    # whatever the approach brushed; slip statistics are of held trials (drift is NaN unless the
+    # object stayed in the hand, see routines.describe)
+    out = out.join(_metric_quantiles(df[valid].assign(slip_mm=df["slip_mm"].where(df["outcome"] == "held"))))
     return out.reset_index()
 
 
