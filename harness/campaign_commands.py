@@ -46,6 +46,9 @@ def register(subparsers):
                    help="local process pool (default) or a dask.distributed cluster")
     r.add_argument("--scheduler", metavar="ADDR", help="dask scheduler address (default: a local cluster)")
     r.add_argument("--hours", type=float, metavar="H", help="time budget; overrides the campaign's [stop] hours")
+    r.add_argument("--crosscheck", type=float, metavar="FRACTION",
+                   help="at the end, re-run this share of each cell's trials under finer numerics and flag "
+                        "numerics-sensitive cells (see `grasp-harness crosscheck`)")
     e = subparsers.add_parser("export", help="write a run's results as CSV or Parquet",
                               description="Write one row per trial of a run folder to RUN/results.csv or "
                                           "RUN/results.parquet (Parquet needs pyarrow).")
@@ -91,6 +94,8 @@ def cmd_plan(args):
     loading = time.perf_counter() - started - sum(walls)
     workers = args.workers or os.cpu_count() or 1
     per_trial = sum(walls) / len(walls)
+    print(f"\nPhysics: {campaign.physics.solver_iterations} solver iterations at {campaign.physics.step_hz} Hz "
+          "(the campaign's [physics] table, else the defaults).")
     estimate = loading + len(plan.tasks) * per_trial / workers
     print(f"\nCalibration: {len(walls)} trial(s), {per_trial:.2f} s each, {loading:.1f} s loading models.")
     print(f"Estimated run time with {workers} worker(s): {_duration(estimate)} (rough: trials differ by "
@@ -163,12 +168,16 @@ def _cell(d):
 def cmd_run(args):
     return _bad_input(lambda: run_campaign(
         args.campaign, workers=args.workers, resume=args.resume, out=args.out, executor=args.executor,
-        scheduler=args.scheduler, hours=args.hours))
+        scheduler=args.scheduler, hours=args.hours, crosscheck=args.crosscheck))
 
 
 def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", executor="local", scheduler=None,
-                 hours=None, progress=True, echo=print):
-    """Run (or resume) a campaign; returns the exit code (0 done, 130 interrupted)."""
+                 hours=None, progress=True, echo=print, crosscheck=None):
+    """Run (or resume) a campaign; returns the exit code (0 done, 130 interrupted). `crosscheck`: a
+    share of each cell's trials to re-run under finer numerics at the end (convergence.crosscheck)."""
+    if crosscheck is not None and not 0 < crosscheck <= 1:
+        from .errors import SpecError
+        raise SpecError("--crosscheck", [(str(crosscheck), "must be a share of trials in (0, 1], e.g. 0.25")])
     from tqdm import tqdm
 
     from .analysis.commands import summary_text
@@ -239,6 +248,10 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
     except HarnessError as exc:
         echo(f"no summary: {exc}")
     echo(f"\nRun folder: {folder}" + (f" ({remaining} planned trial(s) not run: stopping rule)" if remaining else ""))
+    if crosscheck:
+        from .convergence import crosscheck as check
+        echo("")
+        check(folder, sample=crosscheck, campaign_file=campaign_file, workers=workers, progress=progress, echo=echo)
     return 0
 
 

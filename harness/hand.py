@@ -27,6 +27,11 @@ WRIST_FORCE = 500.0  # N; an arm's flange is far stiffer than a finger (common p
 # its stop. The position gain is set so that this lead commands exactly the joint's speed limit
 # (the engine's motor moves gain x error per step).
 CLOSE_LEAD_TIME = 1.0 / 60.0  # s
+# Time constant of the other position servos (pivots, opening fingers). The engine's motor moves
+# gain x error per physics step, so a fixed gain would make the servo 4x faster at 960 Hz than at
+# 240 Hz: a trial's numbers would depend on the step. The gain is derived from this time instead
+# (0.1 per step at 240 Hz, as before).
+SERVO_TIME = 1.0 / 24.0  # s
 
 
 @dataclass(frozen=True)
@@ -87,8 +92,9 @@ class Hand:
         p.resetBasePositionAndOrientation(self.body, pos, orn, physicsClientId=cid)
         self.move_wrist(position, orientation)
 
-    def _position(self, joints, targets, torque_scale=1.0, gain=0.1):
+    def _position(self, joints, targets, torque_scale=1.0, gain=None):
         p = self.world.p
+        gain = self.world.settings.time_step / SERVO_TIME if gain is None else gain
         for j, target in zip(joints, targets):
             lower, upper, effort, speed = self.limits[j]
             p.setJointMotorControl2(self.body, j, p.POSITION_CONTROL, targetPosition=min(max(float(target), lower), upper),

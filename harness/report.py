@@ -75,7 +75,8 @@ def build_report(run, out, against=None, worst=2, campaign_file=None) -> Report:
     page = Page()
     page.section("run", _metadata(run, record, df))
     page.section("outcomes", _outcomes(page, df))
-    page.section("success", _heat_maps(page, df))
+    from .convergence import numerics_flags
+    page.section("success", _heat_maps(page, df, numerics_flags(run)))
     page.section("metrics", _distributions(page, df))
     page.section("difficulty", _difficulty(page, df))
     if against is not None:
@@ -218,8 +219,12 @@ def _outcomes(page, df):
 
 # --- success heat map -----------------------------------------------------------------------------
 
-def _heat_maps(page, df):
+def _heat_maps(page, df, flags=None):
+    """`flags`: {(variant, object_set, object, routine): why} of cells a crosscheck found
+    numerics-sensitive; they get a dashed red frame and are listed under the map."""
     from .analysis import summary
+    flags = flags or {}
+    flagged_at = {(v, o, r) for v, _, o, r in flags}
     plt = agg_pyplot()
     table = summary(df)
     routines = sorted(table["routine"].unique())
@@ -237,6 +242,9 @@ def _heat_maps(page, df):
                 if (o, v) in part.index:
                     rate[i, j] = part.loc[(o, v), "success_rate"]
                     _cell_label(ax, j, i, part.loc[(o, v)], cmap)
+                    if (v, o, routine) in flagged_at:
+                        ax.add_patch(plt.Rectangle((j - 0.46, i - 0.46), 0.92, 0.92, fill=False, edgecolor="#d62728",
+                                                   linestyle="--", linewidth=2))
                 else:
                     ax.add_patch(plt.Rectangle((j - 0.5, i - 0.5), 1, 1, facecolor="#f4f4f4", hatch="///",
                                                edgecolor="#bbbbbb", linewidth=0))
@@ -252,7 +260,14 @@ def _heat_maps(page, df):
     fig.colorbar(image, ax=axes[0].tolist(), shrink=0.6, label="success rate")
     caption = ("Success rate per variant, object and routine: the large number is the rate over valid trials, "
                "the bracket its 95 % Wilson score interval and n the valid trials. Wide brackets mean few trials.")
-    return page.figure(fig, caption)
+    if flags:
+        caption += (f" Dashed red frames: {len(flags)} cell(s) whose results moved under finer numerics in the "
+                    "run's crosscheck (numerics-sensitive; read their rates with care).")
+    html = page.figure(fig, caption)
+    if flags:
+        items = "".join(f"<li>{_e(v)} / {_e(o)} / {_e(r)}: {_e(why)}</li>" for (v, _, o, r), why in sorted(flags.items()))
+        html += f'<p class="note">Numerics-sensitive cells (crosscheck):</p><ul>{items}</ul>'
+    return html
 
 
 def _wrapped(name):

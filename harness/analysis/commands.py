@@ -73,8 +73,33 @@ def cmd_compare(args):
                          "two variants of BASE")
         base = load_table(args.base)
         cand = base if args.candidate is None else load_table(args.candidate)
-        return compare_text(base, cand, args.to, args.margin, args.alpha, args.variants)
+        text, code = compare_text(base, cand, args.to, args.margin, args.alpha, args.variants)
+        if args.to == "text":
+            text += numerics_note(base, cand, args, [args.base] + ([args.candidate] if args.candidate else []))
+        return text, code
     return _run(work)
+
+
+def numerics_note(base, cand, args, runs):
+    """Lines naming the verdicts that rest on cells a crosscheck of either run flagged
+    numerics-sensitive (empty when neither run has flags)."""
+    from ..convergence import numerics_flags
+    from . import compare
+    flags = {}
+    for run in runs:
+        for (variant, _, obj, routine), why in numerics_flags(run).items():
+            flags.setdefault((obj, routine), []).append(f"{variant}: {why}")
+    if not flags:
+        return ""
+    result = compare(base, cand, args.margin, args.alpha, args.variants)
+    lines = []
+    for r in result.itertuples():
+        hits = flags.get((r.object, r.routine), [])
+        if hits and r.verdict != "no detectable change":
+            lines.append(f"  {r.variant} / {r.object} / {r.routine}: verdict '{r.verdict}' rests on a "
+                         f"numerics-sensitive cell ({'; '.join(hits)})")
+    head = f"\nCrosscheck: {sum(map(len, flags.values()))} cell(s) flagged numerics-sensitive in these runs"
+    return head + (":\n" + "\n".join(lines) if lines else "; no verdict rests on them.")
 
 
 def cmd_rank(args):
