@@ -3,14 +3,23 @@
 `register(subparsers)` adds the parsers; each `cmd_*` handler returns the exit code. A malformed
 campaign raises SpecError before any run folder exists (the CLI prints it and exits 2).
 
-Scheduling with stopping rules (`--hours`, `[stop] hours`, `[stop] target_width`): trials are handed
-out one at a time as workers free up. With a time budget no trial is handed out once the budget is
-spent (trials in flight finish and are recorded). With a target width, each cell (variant x object
-set x object x routine) keeps its trials in plan order; the next trial goes to the open cell whose
-95 % Wilson interval of the success rate, over its finished valid trials, is widest (a cell with no
-finished trial counts as width 1; ties go to the cell with fewer trials handed out, then plan
-order). A cell closes once it has at least `min_trials` valid trials and its interval is at most
-`target_width` wide, or when its `trials` are used up.
+Scheduling (`Scheduler`): trials are handed out one at a time as workers free up, in rounds over
+pair keys, so a run stopped at any moment (time budget, Ctrl-C, a crash) is a valid paired
+experiment. A place (object set x object x routine) holds its pair keys in trial order; a pair is
+the trials of every variant the routine suits on that key, handed out one after the other. The next
+pair goes to the open place with the fewest pairs handed out (the round), then the widest 95 %
+Wilson interval of the success rate over its open cells' finished valid trials (a cell with no
+finished trial counts as width 1), then plan order. So every open cell of every variant is within
+one round of every other, and a round spends its trials where the estimates are least certain
+first. A started pair is always completed: once the time budget (`--hours`, `[stop] hours`) is
+spent no new pair starts, but the rest of a started one is still handed out (at most one trial per
+variant beyond the budget; trials in flight finish and are recorded). Ctrl-C or a crash can leave
+the pairs in flight incomplete; resume completes them first, and `compare` pairs only complete ones.
+
+Stopping rules close cells early. With a target width, a cell closes once it has at least
+`min_trials` valid trials and its interval is at most `target_width` wide; with a sequential gate
+(`run --against BASE`), a place closes once its verdict is settled (harness.analysis.sequential).
+A cell also closes when its `trials` are used up.
 """
 
 from __future__ import annotations
@@ -110,13 +119,25 @@ def _duration(seconds):
 # --- run -----------------------------------------------------------------------------------------
 
 class Scheduler:
-    """Hands out trials lazily: in plan order, or widest success interval first (see module doc)."""
+    """Hands out trials lazily in rounds over pair keys, widest interval first (see module doc)."""
 
-    def __init__(self, tasks, *, deadline=None, target_width=None, min_trials=1, done_rows=()):
-        self.deadline, self.target, self.min_trials = deadline, target_width, min_trials
+    def __init__(self, tasks, *, deadline=None, target_width=None, min_trials=1, done_rows=(), gate=None):
+        self.deadline, self.target, self.min_trials, self.gate = deadline, target_width, min_trials, gate
         self.cells = {}  # cell -> [pending tasks (plan order), valid, successes, handed out]
+        self.places = {}  # place -> {pair key: [tasks]} pending pairs, in trial order
+        self.rounds = {}  # place -> pairs started
+        self._widths = {}
         for task in tasks:
-            self.cells.setdefault(_cell(task.payload), [[], 0, 0, 0])[0].append(task)
+            cell = _cell(task.payload)
+            self.cells.setdefault(cell, [[], 0, 0, 0])[0].append(task)
+            pairs = self.places.setdefault(cell[1:], {})
+            pairs.setdefault(_pair(task), []).append(task)
+        started = {(_cell(r)[1:], _pair(r)) for r in done_rows}
+        for place in self.places:
+            self.rounds[place] = len({k for p, k in started if p == place})
+        # pairs a stopped run left incomplete come first
+        self.unfinished = [t for place, pairs in self.places.items() for key, ts in list(pairs.items())
+                           if (place, key) in started for t in pairs.pop(key)]
         for row in done_rows:
             self.record(row)
 
@@ -125,35 +146,58 @@ class Scheduler:
         if cell is not None and row.get("outcome") not in ("invalid", "error", "timeout"):
             cell[1] += 1
             cell[2] += bool(row.get("success"))
+            self._widths.pop(_cell(row), None)
 
     def width(self, cell):
-        from .analysis.stats import wilson_interval
-        _, valid, wins, _ = self.cells[cell]
-        if not valid:
-            return 1.0
-        lo, hi = wilson_interval(wins, valid)
-        return float(hi - lo)
+        """Width of the cell's 95 % Wilson interval (1 before its first valid trial); cached per count."""
+        if cell not in self._widths:
+            from .analysis.stats import wilson_interval
+            _, valid, wins, _ = self.cells[cell]
+            lo, hi = wilson_interval(wins, valid) if valid else (0.0, 1.0)
+            self._widths[cell] = float(hi - lo)
+        return self._widths[cell]
 
     def closed(self, cell):
         pending, valid = self.cells[cell][0], self.cells[cell][1]
-        return not pending or (self.target is not None and valid >= self.min_trials
-                               and self.width(cell) <= self.target)
+        return (not pending or (self.target is not None and valid >= self.min_trials
+                                and self.width(cell) <= self.target)
+                or (self.gate is not None and self.gate.settled(cell[1:])))
+
+    def _hand(self, task):
+        cell = self.cells[_cell(task.payload)]
+        cell[0].remove(task)
+        cell[3] += 1
+        return task.trial_key, task.payload
 
     def __iter__(self):
-        order = {cell: i for i, cell in enumerate(self.cells)}
+        order = {place: i for i, place in enumerate(self.places)}
+        for task in self.unfinished:
+            if not self.closed(_cell(task.payload)):
+                yield self._hand(task)
         while True:
             if self.deadline is not None and time.monotonic() >= self.deadline:
                 return
-            open_cells = [c for c in self.cells if not self.closed(c)]
-            if not open_cells:
+            open_places = {}
+            for place, pairs in self.places.items():
+                cells = [c for c in {_cell(t.payload) for t in next(iter(pairs.values()), [])}
+                         if not self.closed(c)] if pairs else []
+                if cells:
+                    open_places[place] = max(self.width(c) for c in cells)
+            if not open_places:
                 return
-            if self.target is None:
-                cell = open_cells[0]
-            else:
-                cell = min(open_cells, key=lambda c: (-self.width(c), self.cells[c][3], order[c]))
-            self.cells[cell][3] += 1
-            task = self.cells[cell][0].pop(0)
-            yield task.trial_key, task.payload
+            place = min(open_places, key=lambda p: (self.rounds[p], -open_places[p], order[p]))
+            self.rounds[place] += 1
+            pairs = self.places[place]
+            for task in pairs.pop(next(iter(pairs))):
+                if not self.closed(_cell(task.payload)):
+                    yield self._hand(task)
+
+
+def _pair(d):
+    """The pair key of a task or row (its trial key when it has none: a pair of one)."""
+    if hasattr(d, "payload"):
+        return d.payload.get("pair_key", d.trial_key)
+    return d.get("pair_key", d.get("trial_key"))
 
 
 def _cell(d):

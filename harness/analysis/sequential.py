@@ -81,6 +81,7 @@ class SequentialGate:
         self.halves = {}  # (place, pair_key) -> {side: success}
         self.scores = {}  # place -> [D, ...]
         self.voided = {}  # place -> pairs voided by a broken trial
+        self.verdicts = {}  # place -> (verdict, pairs used), kept current by `add`
 
     def add(self, place, pair_key, side, success):
         half = self.halves.setdefault((place, pair_key), {})
@@ -89,15 +90,16 @@ class SequentialGate:
             if None in half.values():
                 self.voided[place] = self.voided.get(place, 0) + 1
             else:
-                self.scores.setdefault(place, []).append(int(half["base"]) - int(half["candidate"]))
+                scores = self.scores.setdefault(place, [])
+                scores.append(int(half["base"]) - int(half["candidate"]))
+                if self.verdict(place)[0] not in (WORSE, SETTLED):  # a settled verdict stays
+                    verdict, used = settle(np.array(scores), **self.options)
+                    self.verdicts[place] = (str(verdict), int(used))
+            del self.halves[(place, pair_key)]
 
     def verdict(self, place):
         """(verdict, pairs used) of one place so far."""
-        scores = self.scores.get(place, [])
-        if not scores:
-            return OPEN, 0
-        verdict, used = settle(np.array(scores), **self.options)
-        return str(verdict), int(used)
+        return self.verdicts.get(place, (OPEN, 0))
 
     def settled(self, place):
         return self.verdict(place)[0] in (WORSE, SETTLED)
