@@ -43,6 +43,8 @@ def register(subparsers):
     p.add_argument("campaign", metavar="CAMPAIGN", help="campaign file (campaigns/*.toml)")
     p.add_argument("--workers", type=int, metavar="N", help="worker processes to estimate for "
                                                             "(default: one per core)")
+    p.add_argument("--hours", type=float, metavar="H", help="time budget to plan for: how many rounds (one "
+                                                            "pair per cell of every variant) fit in it")
     r = subparsers.add_parser("run", help="run a campaign into a run folder (resumable)",
                               description="Run every trial of a campaign in worker processes, recording each "
                                           "finished trial in the run folder's journal. Ctrl-C stops; "
@@ -55,6 +57,10 @@ def register(subparsers):
                    help="local process pool (default) or a dask.distributed cluster")
     r.add_argument("--scheduler", metavar="ADDR", help="dask scheduler address (default: a local cluster)")
     r.add_argument("--hours", type=float, metavar="H", help="time budget; overrides the campaign's [stop] hours")
+    r.add_argument("--against", metavar="BASE_RUN",
+                   help="finished run of the base design: stop each cell as soon as the sequential gate settles "
+                        "its verdict against BASE_RUN's paired trials (needs the campaign's detect_drop; "
+                        "`trials` is the most a cell runs)")
     e = subparsers.add_parser("export", help="write a run's results as CSV or Parquet",
                               description="Write one row per trial of a run folder to RUN/results.csv or "
                                           "RUN/results.parquet (Parquet needs pyarrow).")
@@ -92,6 +98,8 @@ def cmd_plan(args):
         reasons.setdefault((routine, reason), []).append(f"{variant} / {obj}")
     for (routine, reason), pairs in reasons.items():
         print(f"  {routine}: {reason} ({len(pairs)} combination(s))")
+    for line in power_lines(campaign, plan):
+        print(line)
     if not plan.tasks:
         return 0
     picks = sorted({0, len(plan.tasks) // 2})
@@ -104,9 +112,43 @@ def cmd_plan(args):
     print(f"\nCalibration: {len(walls)} trial(s), {per_trial:.2f} s each, {loading:.1f} s loading models.")
     print(f"Estimated run time with {workers} worker(s): {_duration(estimate)} (rough: trials differ by "
           "routine and object)")
-    if campaign.stop and campaign.stop.hours:
-        print(f"Time budget: {_duration(campaign.stop.hours * 3600)}")
+    hours = args.hours if getattr(args, "hours", None) is not None else (campaign.stop.hours if campaign.stop else None)
+    if hours:
+        rounds = int(max(0.0, hours * 3600 - loading) * workers / per_trial // len(rows))
+        print(f"Time budget: {_duration(hours * 3600)}: about {min(rounds, campaign.trials)} of {campaign.trials} "
+              f"round(s) fit (a round is one pair of trials per cell, {len(rows)} trials); a run stopped by the "
+              "budget has every cell within one round of the others.")
     return 0
+
+
+def power_lines(campaign, plan, alpha=0.05):
+    """What a paired comparison of this campaign's runs can see (harness.analysis.power), in words."""
+    from .analysis.power import POWER, detectable_drop, fewest_flaggable, pairs_needed
+    cells = plan.cells()
+    places = {cell[1:] for cell in cells}
+    if not places:
+        return []
+    rows = len(places) + 1  # compare's rows for one pair of variants: each place and the overall row
+    level = alpha / rows
+    n = campaign.trials
+    need = fewest_flaggable(level)
+    drop = detectable_drop(n, level)
+    lines = ["", f"Power of a paired comparison of two variants or runs of this campaign (exact McNemar, alpha "
+                 f"{alpha:g} with Holm over {rows} rows, so {level:.2g} for a lone changed cell; {POWER:.0%} "
+                 "power; a candidate losing only trials the base won, the most favourable case):"]
+    if drop != drop:
+        lines.append(f"  WARNING: a cell of {n} pairs can never be flagged, whatever the change: it needs at least "
+                     f"{need} pairs that differ, all one way. Only the overall row can show a drop.")
+    else:
+        lines.append(f"  a cell of {n} pairs can show a drop of {drop:.2f} or more; smaller drops pass unseen.")
+    lines.append(f"  the overall row ({n * len(places)} pairs) can show a uniform drop of "
+                 f"{detectable_drop(n * len(places), level):.2f} or more.")
+    if campaign.detect_drop:
+        needed = pairs_needed(campaign.detect_drop, level)
+        verdict = ("enough" if n >= needed else
+                   f"WARNING: raise trials to {needed} or the campaign cannot detect it")
+        lines.append(f"  detect_drop {campaign.detect_drop:g} needs {needed} trials per cell; trials = {n}: {verdict}.")
+    return lines
 
 
 def _duration(seconds):
@@ -207,12 +249,14 @@ def _cell(d):
 def cmd_run(args):
     return _bad_input(lambda: run_campaign(
         args.campaign, workers=args.workers, resume=args.resume, out=args.out, executor=args.executor,
-        scheduler=args.scheduler, hours=args.hours))
+        scheduler=args.scheduler, hours=args.hours, against=getattr(args, "against", None)))
 
 
 def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", executor="local", scheduler=None,
-                 hours=None, progress=True, echo=print):
-    """Run (or resume) a campaign; returns the exit code (0 done, 130 interrupted)."""
+                 hours=None, progress=True, echo=print, against=None):
+    """Run (or resume) a campaign; returns the exit code (0 done, 130 interrupted).
+
+    `against`: a finished base run folder; cells stop once the sequential gate settles (`_gate`)."""
     from tqdm import tqdm
 
     from .analysis.commands import summary_text
@@ -224,6 +268,7 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
     campaign = load_campaign(campaign_file)  # a malformed campaign stops here: no run folder
     plan = expand(campaign)
     resolved = campaign.resolved()
+    gate = _gate(campaign, plan, against) if against else None  # bad input stops before any run folder
     if resume:
         folder = Path(resume)
         recorded = read_campaign(folder)
@@ -243,10 +288,12 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
         done_rows = journal.rows()
         done = {row["trial_key"] for row in done_rows}
         todo = [t for t in plan.tasks if t.trial_key not in done]
+        for row in done_rows if gate is not None else ():
+            _gate_add(gate, row, "candidate")
         sched = Scheduler(todo, deadline=time.monotonic() + hours * 3600 if hours else None,
                           target_width=stop.target_width if stop else None,
                           min_trials=stop.min_trials if stop else 1,
-                          done_rows=[r for r in done_rows if r["trial_key"] in payloads])
+                          done_rows=[r for r in done_rows if r["trial_key"] in payloads], gate=gate)
         events.log("run_start", planned=len(plan.tasks), done=len(done), todo=len(todo), workers=workers,
                    executor=executor, hours=hours)
         tally = {"valid": 0, "held": 0}
@@ -258,6 +305,8 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
                 row = {**failure_inputs(payloads[key]), "success": False, **row}
             journal.add(row)
             events.log("trial", trial_key=key, outcome=row.get("outcome"))
+            if gate is not None:
+                _gate_add(gate, row, "candidate")
             sched.record(row)
             if row.get("outcome") not in ("invalid", "error", "timeout"):
                 tally["valid"] += 1
@@ -282,8 +331,49 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
         echo(summary_text(load_run(folder)))
     except HarnessError as exc:
         echo(f"no summary: {exc}")
+    if gate is not None:
+        echo(_gate_text(gate, plan))
     echo(f"\nRun folder: {folder}" + (f" ({remaining} planned trial(s) not run: stopping rule)" if remaining else ""))
     return 0
+
+
+def _gate(campaign, plan, against):
+    """A SequentialGate of the campaign's places, fed with the base run's trials and our finished ones."""
+    from .analysis.sequential import SequentialGate
+    from .errors import HarnessError
+    from .runs import load_run
+    if not campaign.detect_drop:
+        raise HarnessError(f"run --against needs the campaign's detect_drop (the drop each cell must detect); "
+                           f"{campaign.file} has none")
+    base = load_run(against)
+    places = {cell[1:] for cell in plan.cells()}
+    gate = SequentialGate(cells=len(places), detect_drop=campaign.detect_drop, max_pairs=campaign.trials)
+    shared = 0
+    for row in base.to_dict("records"):
+        if _cell(row)[1:] in places:
+            shared += 1
+            _gate_add(gate, row, "base")
+    if not shared:
+        raise HarnessError(f"the base run {against} has no trial of this campaign's cells (object set, object, "
+                           "routine); compare needs shared pair keys")
+    return gate
+
+
+def _gate_add(gate, row, side):
+    broken = row.get("outcome") in ("invalid", "error", "timeout")
+    gate.add(_cell(row)[1:], row.get("pair_key"), side, None if broken else bool(row.get("success")))
+
+
+def _gate_text(gate, plan):
+    from .analysis.sequential import SETTLED, WORSE
+    places = sorted({cell[1:] for cell in plan.cells()})
+    verdicts = [gate.verdict(p) for p in places]
+    worse = [f"{p[1]} / {p[2]}" for p, (v, _) in zip(places, verdicts) if v == WORSE]
+    settled = sum(v in (WORSE, SETTLED) for v, _ in verdicts)
+    return (f"\nSequential gate (detect_drop {gate.options['detect_drop']:g}, alpha {gate.options['alpha']:g} over "
+            f"{len(places)} cells): {settled} of {len(places)} cells settled, {len(worse)} worse"
+            + (f" ({', '.join(worse)})" if worse else "") + f"; {sum(n for _, n in verdicts)} pairs used. "
+            "Run `grasp-harness compare` on the two runs for the full table.")
 
 
 # --- export --------------------------------------------------------------------------------------

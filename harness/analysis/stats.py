@@ -180,7 +180,8 @@ def median_difference(cand, base=None, confidence=0.95):
 # --- Hodges-Lehmann estimates with the intervals that invert the rank tests -------------------------
 
 EXACT_SIGNED_RANK = 50  # up to this many differences the signed-rank critical value is exact (as scipy's test)
-DIRECT_WALSH = 2000  # up to this many values the Walsh averages / pairwise differences are listed outright
+SELECT_LIST = 200_000  # sums listed outright once this few remain in play (`_order_stats`)
+SELECT_SAMPLE = 20_000  # sums sampled per bracketing step
 
 
 def signed_rank_null(n):
@@ -197,44 +198,58 @@ def signed_rank_null(n):
     return counts / 2.0 ** n
 
 
-def _kth_sum(x, y, k, same):
-    """The k-th smallest (1-based) of x_i + y_j (all i, j), or of x_i + x_j (i <= j) when `same`.
+def _order_stats(x, y, ks, same):
+    """The ks-th smallest (1-based) of the sums x_i + y_j (all i, j), or x_i + x_j (i <= j) when `same`.
 
-    Bisection on the value: the count of sums <= t is one searchsorted over sorted y, so big samples
-    (the overall row of a large run) need no list of n^2 sums (Monahan's idea of selecting without
-    listing, in its simplest form). Stops when the bracket holds a single float.
+    Selection without listing all n^2 sums (the idea of Monahan (1984), "Fast computation of the
+    Hodges-Lehmann location estimator", ACM TOMS 10:265-270): the sorted rows keep, per row, the
+    range of columns still in play; a uniform sample of the sums in play brackets the wanted rank,
+    one searchsorted per row counts the bracket exactly, and once few enough remain they are listed.
+    The result is exact; the seeded sample only sets the speed.
     """
-    x, y = np.sort(x), np.sort(y)
-    idx = np.arange(x.size)
-
-    def count(t):
-        hits = np.searchsorted(y, t - x, side="right")
-        return int(np.clip(hits - idx, 0, None).sum()) if same else int(hits.sum())
-
-    lo, hi = x[0] + y[0], x[-1] + y[-1]
-    if count(lo) >= k:
-        return float(lo)
-    for _ in range(200):  # count(lo) < k <= count(hi)
-        mid = lo + (hi - lo) / 2
-        if mid <= lo or mid >= hi:
-            break
-        if count(mid) >= k:
-            hi = mid
-        else:
-            lo = mid
-    return float(hi)
-
-
-def _order_stat(x, y, k, same):
-    """k-th smallest (1-based) Walsh sum (same) or pairwise sum, listed outright when small."""
-    if x.size <= DIRECT_WALSH and y.size <= DIRECT_WALSH:
-        if same:
-            i, j = np.triu_indices(x.size)
-            sums = x[i] + x[j]
-        else:
-            sums = np.add.outer(x, y).ravel()
-        return float(np.partition(sums, k - 1)[k - 1])
-    return _kth_sum(x, y, k, same)
+    x, y = np.sort(np.asarray(x, dtype=float)), np.sort(np.asarray(y, dtype=float))
+    rng = np.random.default_rng(0)
+    start = np.arange(x.size) if same else np.zeros(x.size, dtype=np.int64)
+    out = []
+    for k in ks:
+        left, right, below = start.copy(), np.full(x.size, y.size), 0
+        while True:
+            width = np.maximum(right - left, 0)
+            total = int(width.sum())
+            if total <= SELECT_LIST:
+                rows = np.repeat(np.arange(x.size), width)
+                cols = np.arange(total) - np.repeat(np.cumsum(width) - width, width) + np.repeat(left, width)
+                sums = x[rows] + y[cols]
+                out.append(float(np.partition(sums, k - below - 1)[k - below - 1]))
+                break
+            draws = min(SELECT_SAMPLE, int(np.sqrt(total)) * 8)
+            flat = rng.integers(0, total, draws)  # uniform over the sums in play, row by row
+            ends = np.cumsum(width)
+            rows = np.searchsorted(ends, flat, side="right")
+            cols = left[rows] + flat - (ends[rows] - width[rows])
+            sample = np.sort(x[rows] + y[cols])
+            at = (k - below) / total * draws
+            spread = 4 * np.sqrt(draws)
+            a = sample[int(np.clip(at - spread, 0, draws - 1))]
+            b = sample[int(np.clip(at + spread, 0, draws - 1))]
+            pa = np.clip(np.searchsorted(y, a - x, side="left"), left, right)  # sums < a
+            pb = np.clip(np.searchsorted(y, b - x, side="right"), left, right)  # sums <= b
+            under, inside = below + int((pa - left).sum()), int((pb - pa).sum())
+            if inside == total:  # ties kept the bracket whole: split at one pivot (<, ==, > it) instead
+                a = b = sample[int(np.clip(at, 0, draws - 1))]
+                pa = np.clip(np.searchsorted(y, a - x, side="left"), left, right)
+                pb = np.clip(np.searchsorted(y, b - x, side="right"), left, right)
+                under, inside = below + int((pa - left).sum()), int((pb - pa).sum())
+                if under < k <= under + inside:
+                    out.append(float(a))
+                    break
+            if k <= under:
+                right = pa
+            elif k > under + inside:
+                left, below = pb, under + inside
+            else:
+                left, right, below = pa, pb, under
+    return out
 
 
 def hodges_lehmann(cand, base=None, confidence=0.95):
@@ -272,9 +287,8 @@ def hodges_lehmann(cand, base=None, confidence=0.95):
         k = int(np.floor(m / 2 - z * np.sqrt(m * (cand.size + base.size + 1) / 12)))
         x, y, same = cand, -base, False
     half = 0.5 if same else 1.0  # Walsh averages are half the sums
-    mid = (_order_stat(x, y, (m + 1) // 2, same) + _order_stat(x, y, m // 2 + 1, same)) / 2 * half
     if k < 1:  # too few values for any interval at this confidence
-        return float(mid), -np.inf, np.inf
-    lo = _order_stat(x, y, k, same) * half
-    hi = _order_stat(x, y, m + 1 - k, same) * half
-    return float(mid), float(lo), float(hi)
+        a, b = _order_stats(x, y, [(m + 1) // 2, m // 2 + 1], same)
+        return float((a + b) / 2 * half), -np.inf, np.inf
+    a, b, lo, hi = _order_stats(x, y, [(m + 1) // 2, m // 2 + 1, k, m + 1 - k], same)
+    return float((a + b) / 2 * half), float(lo * half), float(hi * half)
