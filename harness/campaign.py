@@ -111,6 +111,9 @@ class CampaignFile:
     trials: int = param("trials", "integer", gt=0, le=100000, doc="trials per cell")
     objects: tuple = param("objects", "texts", doc="object set files relative to the campaign")
     timeout_s: float = param("timeout_s", gt=0, default=120.0, doc="time limit of one trial")
+    detect_drop: float = param("detect_drop", gt=0, le=1, default=None,
+                               doc="smallest drop in success rate a comparison of this campaign's runs must "
+                                   "detect per cell; `plan` says how many trials per cell that needs")
     perturbation: PerturbationRanges = section("perturbation", optional=True)
     stop: StopRules = section("stop", optional=True)
     physics: PhysicsTable = section("physics", optional=True)
@@ -161,6 +164,7 @@ class Campaign:
     stop: StopRules | None
     physics: PhysicsSettings
     raw: dict = field(repr=False)
+    detect_drop: float | None = None
 
     def fingerprint(self):
         """Hash of the file and of what it resolves to (variant parameters, object sets, routines), so a
@@ -209,7 +213,8 @@ def load_campaign(path) -> Campaign:
     problems.raise_if_any()
     physics = (top.physics or PhysicsTable()).settings()
     return Campaign(path, top.name, top.description, top.seed, top.trials, top.timeout_s, grippers, sets,
-                    routines, top.perturbation or PerturbationRanges(), top.stop, physics, raw)
+                    routines, top.perturbation or PerturbationRanges(), top.stop, physics, raw,
+                    top.detect_drop)
 
 
 def _root(path, root, problems):

@@ -324,10 +324,11 @@ def test_cli_plan_and_export(tiny, tmp_path, capsys):
 
 # --- stopping rules ----------------------------------------------------------------------------
 
-def _fake_tasks(cells, trials):
+def _fake_tasks(cells, trials, places=("o",)):
     from harness.campaign import TrialTask
-    return [TrialTask(f"{c}-{i}", {"variant": c, "object_set": "s", "object": "o", "routine": "r", "i": i})
-            for c in cells for i in range(trials)]
+    return [TrialTask(f"{c}-{o}-{i}", {"variant": c, "object_set": "s", "object": o, "routine": "r", "i": i,
+                                       "pair_key": f"{o}-{i}", "key": f"{c}-{o}-{i}", "seed": i})
+            for c in cells for o in places for i in range(trials)]
 
 
 def test_widest_interval_first_and_a_narrow_cell_closes():
@@ -348,16 +349,68 @@ def test_widest_interval_first_and_a_narrow_cell_closes():
     assert all(sched.closed(c) for c in sched.cells)
 
 
-def test_without_a_target_every_trial_runs_in_plan_order_and_a_spent_budget_hands_out_none():
+def test_without_a_target_trials_come_in_rounds_of_pairs_and_a_spent_budget_hands_out_none():
     import time
 
     from harness.campaign_commands import Scheduler
-    tasks = _fake_tasks("ab", 3)
-    assert [k for k, _ in Scheduler(tasks)] == [t.trial_key for t in tasks]
+    tasks = _fake_tasks("ab", 3, places=("o", "p"))
+    # rounds over pair keys: every place's first pair (both variants), then every place's second, ...
+    assert [k for k, _ in Scheduler(tasks)] == [f"{v}-{o}-{i}" for i in range(3) for o in "op" for v in "ab"]
     assert list(Scheduler(tasks, deadline=time.monotonic() - 1)) == []
     done = [{**tasks[0].payload, "outcome": "held", "success": True}]
     sched = Scheduler(tasks[1:], target_width=0.9, min_trials=1, done_rows=done * 2)
     assert sched.cells[("a", "s", "o", "r")][1:3] == [2, 2]  # finished rows of a resumed run count
+
+
+def test_a_resumed_run_completes_its_broken_pairs_first():
+    from harness.campaign_commands import Scheduler
+    tasks = _fake_tasks("abc", 3, places=("o", "p"))
+    done = [{**t.payload, "trial_key": t.trial_key, "outcome": "held", "success": True}
+            for t in tasks if t.trial_key in ("a-p-1", "b-p-1", "a-o-0", "b-o-0", "c-o-0")]
+    keys = [k for k, _ in Scheduler([t for t in tasks if t.trial_key not in {r["trial_key"] for r in done}],
+                                    done_rows=done)]
+    assert keys[0] == "c-p-1"  # the pair a Ctrl-C left without its third trial
+    # then rounds: each place has one pair started; p's cell c has no finished trial yet (width 1), so
+    # p's next pair (trial 0) goes before o's (trial 1)
+    assert keys[1:7] == ["a-p-0", "b-p-0", "c-p-0", "a-o-1", "b-o-1", "c-o-1"]
+    assert sorted(keys) == sorted(t.trial_key for t in tasks if t.trial_key not in {r["trial_key"] for r in done})
+
+
+def test_a_budget_spent_mid_campaign_leaves_every_cell_within_one_round_and_only_complete_pairs():
+    # Three variants x five places x 12 trials of a fast stand-in trial, in real worker processes; the
+    # time budget runs out (deadline set to now) after 40 results, about a fifth of the 180 trials.
+    # Place "e" suits only two variants (pairs of two).
+    import time
+
+    import dummy_tasks
+    from harness.campaign_commands import Scheduler
+    from harness.executors import run_tasks
+    tasks = [t for t in _fake_tasks("abc", 12, places="abcde") if not (t.payload["object"] == "e"
+                                                                        and t.payload["variant"] == "c")]
+    for t in tasks:
+        t.payload["sleep_s"] = 0.01
+    sched = Scheduler(tasks, deadline=time.monotonic() + 3600)
+    rows = {}
+
+    def on_result(key, row):
+        rows[key] = {**next(t.payload for t in tasks if t.trial_key == key), **row}
+        sched.record(rows[key])
+        if len(rows) == 40:
+            sched.deadline = time.monotonic()
+
+    run_tasks(sched, dummy_tasks.trial, on_result=on_result, workers=2)
+    assert 40 <= len(rows) < len(tasks) // 2
+    counts = {}
+    for r in rows.values():
+        counts[(r["variant"], r["object"])] = counts.get((r["variant"], r["object"]), 0) + 1
+    cells = {(t.payload["variant"], t.payload["object"]) for t in tasks}
+    per_cell = [counts.get(c, 0) for c in cells]
+    assert max(per_cell) - min(per_cell) <= 1, counts
+    by_pair = {}
+    for r in rows.values():
+        by_pair.setdefault(r["pair_key"], set()).add(r["variant"])
+    for key, variants in by_pair.items():
+        assert variants == ({"a", "b"} if key.startswith("e") else {"a", "b", "c"}), (key, variants)
 
 
 def test_campaign_with_a_target_width_stops_early(tiny, tmp_path):
