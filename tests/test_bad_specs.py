@@ -65,6 +65,13 @@ def hand_urdf(palm_ixx="1e-4", palm_mass="0.3"):
     return f'<?xml version="1.0"?>\n<robot name="hand">\n{body}</robot>\n'
 
 
+NAN_INERTIA_OBJECT = """<?xml version="1.0"?>
+<robot name="tag"><link name="tag">
+  <inertial><mass value="0.01"/><inertia ixx="nan" ixy="0" ixz="0" iyy="1e-6" iyz="0" izz="1e-6"/></inertial>
+  <collision><geometry><box size="0.03 0.02 0.004"/></geometry></collision>
+</link></robot>
+"""
+
 PART_URDF_OBJECT = """\
 [[object]]
 name = "own-parts"
@@ -417,11 +424,12 @@ CASES = [
     Case("urdf_folder_missing", "lab", (append(PART_URDF_OBJECT.replace('"parts"', '"no-such-parts"')),),
          fields=("object[8].folder",), says=("must name an existing folder relative to", "(not found)")),
     Case("urdf_folder_without_urdf", "lab", (append(PART_URDF_OBJECT),), files=(_make_dir("parts"),),
-         fields=("object[8].folder",), says=("must hold at least one *.urdf file; 'parts' has none",)),
+         fields=("object[8].folder",), says=("must hold at least one URDF file matching pattern '**/*.urdf'; 'parts' has none",)),
     Case("urdf_folder_nan_inertia", "lab", (append(PART_URDF_OBJECT),),
-         files=(write_file("parts/palm.urdf", hand_urdf(palm_ixx="nan")),),
+         files=(write_file("parts/tag.urdf", NAN_INERTIA_OBJECT),),
          fields=("object[8].folder",),
-         says=("file palm.urdf link 'palm' must have a finite mass > 0 and a positive-definite inertia",)),
+         says=("file tag.urdf: link 'tag' <inertial> <inertia ixx> must be 1 finite number(s); got 'nan'",
+               'set inertia = "geometry" on this object set entry')),
     Case("urdf_folder_with_mass", "lab", (append(PART_URDF_OBJECT + "mass_g = 40\n"),),
          files=(write_file("parts/palm.urdf", hand_urdf()),),
          fields=("object[8].mass_g",), says=("must not be given for 'urdf-folder'",)),
