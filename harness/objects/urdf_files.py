@@ -265,8 +265,12 @@ def _rpy_matrix(roll, pitch, yaw):
 
 def _rpy(rot):
     """The URDF roll-pitch-yaw of a rotation matrix (inverse of _rpy_matrix)."""
+    import warnings
+
     from scipy.spatial.transform import Rotation
-    return tuple(float(a) for a in Rotation.from_matrix(rot).as_euler("xyz"))
+    with warnings.catch_warnings():  # at pitch +-90 deg scipy warns and folds yaw into roll: the same rotation
+        warnings.simplefilter("ignore", UserWarning)
+        return tuple(float(a) for a in Rotation.from_matrix(rot).as_euler("xyz"))
 
 
 def _geometry(collision, what, offset, rot, file, root):
