@@ -237,9 +237,9 @@ def tiny(tmp_path):
     return write(tmp_path, TINY, "tiny.toml")
 
 
-def _run(campaign, out, **kw):
+def _run(campaign, out, expect=0, **kw):
     code = run_campaign(campaign, out=out, progress=False, echo=lambda *a, **k: None, **kw)
-    assert code == 0
+    assert code == expect
     (folder,) = [p for p in Path(out).iterdir()] if "resume" not in kw else [Path(kw["resume"])]
     return folder
 
