@@ -28,7 +28,7 @@ from harness.cli import main
 from harness.errors import SpecError
 from harness.objects import generate
 from harness.objects.urdf_files import _rpy, _rpy_matrix
-from harness.runs import load_run
+from harness.runs import load_run, read_campaign
 from harness.specs import load_any
 
 REPO = Path(__file__).resolve().parents[1]
@@ -374,6 +374,11 @@ def test_a_draw_in_campaign_over_the_corpus_has_no_error_and_the_report_builds(c
     assert sorted(df["object"]) == sorted(EXPECTED)
     assert not df["outcome"].isin(["error", "timeout"]).any(), df[["object", "outcome"]]
     assert df[["slip_mm", "sim_s"]].notna().all().all()
+    # the run record says which file each object came from and which inertia policy gave its numbers
+    sources = read_campaign(folder)["object_sets"][0]["sources"]
+    assert sources["snap-cap"] == {"file": "geometry/zero-inertia-clip.urdf", "inertia": "geometry, mass from the file",
+                                   "friction": "set", "restitution": "default", "contact": "rigid"}
+    assert sources["vial-cap"]["inertia"] == "file" and sources["vial-cap"]["friction"] == "file"
     report = build_report(folder, tmp_path / "r.html", worst=1, campaign_file=campaign)
     assert report.images >= 3 and "Trials that failed to run" not in report.path.read_text()
     assert all(match for _, match, _ in report.replays)
