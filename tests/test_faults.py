@@ -153,7 +153,7 @@ NEW_SPECS = {
         "joint 'camera_mount' of hand.urdf names a missing parent link"),
     "urdf_folder_object_with_missing_link": (
         "lab", append(PART_URDF_OBJECT), lambda f, j: _urdf_folder_missing_link(f),
-        "file palm.urdf has joint 'finger1_flex' whose child link 'finger7' is missing"),
+        "file palm.urdf: has joint 'finger1_flex' whose child link 'finger7' is missing"),
     "junk_100mb_as_mesh": (
         "stress", put("[[object]]", "file", '"meshes/junk.obj"', **MESH),
         lambda f, j: (f / "meshes" / "junk.obj").write_bytes(j), "'meshes/junk.obj' is truncated or damaged"),

@@ -195,14 +195,14 @@ def _read(file, root, digest, data):
 def _link_poses(robot, links):
     """{link: (offset (3,), rotation (3, 3))} in the base link's frame; only fixed joints allowed."""
     parent_of = {}
-    for joint in robot.findall("joint"):
-        name = joint.get("name")
-        ends = {}
+    for joint in robot.findall("joint"):  # a dangling joint first: the engine refuses such a file outright
         for end in ("parent", "child"):
             named = joint.find(end).get("link") if joint.find(end) is not None else None
             if named not in links:
-                raise ValueError(f"has joint {name!r} whose {end} link {named!r} is missing")
-            ends[end] = named
+                raise ValueError(f"has joint {joint.get('name')!r} whose {end} link {named!r} is missing")
+    for joint in robot.findall("joint"):
+        name = joint.get("name")
+        ends = {end: joint.find(end).get("link") for end in ("parent", "child")}
         if joint.get("type") != "fixed":
             raise ValueError(f"joint {name!r} is of type {joint.get('type')!r}; an object is one rigid body, so "
                              "its links may only be joined by fixed joints")
@@ -494,7 +494,7 @@ def urdf_instances(object_set, entry):
         obj = read_urdf_object(file, root)
         for i in range(entry.count):
             name = f"{stem}-{i}" if entry.count > 1 else stem
-            rng = rng_for(object_set.seed, entry.name, file.name, i)
+            rng = rng_for(object_set.seed, entry.name, str(file.relative_to(root)), i)  # nested names repeat
             mass, com, inertia, source = _mass_properties(entry, obj, rng)
             material, sources = _material_of(entry, obj, rng)
             out.append(instance(entry, object_set.name, name, obj.shape, rng, {}, mass_props=(mass, com, inertia),
