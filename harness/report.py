@@ -240,6 +240,9 @@ def _heat_maps(page, df):
     from .analysis import summary
     plt = agg_pyplot()
     table = summary(df)
+    # an object name used by two object sets is two objects: label those rows with their set
+    sets_of = table.groupby("object")["object_set"].nunique()
+    table["object"] = [f"{s}/{o}" if sets_of[o] > 1 else o for s, o in zip(table["object_set"], table["object"])]
     routines = sorted(table["routine"].unique())
     variants = sorted(table["variant"].unique())
     objects = sorted(table["object"].unique())
