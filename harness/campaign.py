@@ -183,7 +183,10 @@ class Campaign:
                           "variants": [{"name": m.name, "key": m.key} for m in models]}
                          for spec, models in self.grippers],
             "object_sets": [{"file": str(s.file), "name": s.name, "seed": s.seed,
-                             "objects": [i.name for i in instances]} for s, instances in self.object_sets],
+                             "objects": [i.name for i in instances],
+                             # objects read from files: the file and where inertia and material came from
+                             "sources": {i.name: {"file": i.source, **i.sources} for i in instances if i.sources}}
+                            for s, instances in self.object_sets],
             "routines": [{"name": u.routine.name, "params": normalised(u.routine.params), "table": u.table}
                          for u in self.routines],
             "perturbation": normalised(self.perturbation),

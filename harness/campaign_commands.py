@@ -29,9 +29,13 @@ import sys
 import time
 from pathlib import Path
 
-__all__ = ["register", "cmd_plan", "cmd_run", "cmd_export", "Scheduler", "run_campaign"]
+__all__ = ["register", "cmd_plan", "cmd_run", "cmd_export", "Scheduler", "run_campaign", "ERRORED", "ERROR_SHARE"]
 
 INTERRUPTED = 130
+# Exit code of a run in which more than ERROR_SHARE of the recorded trials ended in `error` or
+# `timeout` (the harness's code failed or hung, so those trials say nothing about the gripper).
+ERRORED = 3
+ERROR_SHARE = 0.05
 
 
 def register(subparsers):
@@ -260,7 +264,8 @@ def cmd_run(args):
 
 def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", executor="local", scheduler=None,
                  hours=None, progress=True, echo=print, against=None, crosscheck=None):
-    """Run (or resume) a campaign; returns the exit code (0 done, 130 interrupted).
+    """Run (or resume) a campaign; returns the exit code (0 done, 130 interrupted, ERRORED when more than
+    ERROR_SHARE of the recorded trials ended in error or timeout).
 
     `against`: a finished base run folder; cells stop once the sequential gate settles (`_gate`).
     `crosscheck`: a share of each cell's trials to re-run under finer numerics at the end
@@ -308,6 +313,7 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
         events.log("run_start", planned=len(plan.tasks), done=len(done), todo=len(todo), workers=workers,
                    executor=executor, hours=hours)
         tally = {"valid": 0, "held": 0}
+        failures = {}  # short reason -> count, for the progress line
         bar = tqdm(total=len(plan.tasks), initial=len(done), unit="trial", disable=not progress,
                    dynamic_ncols=True, smoothing=0.1)
 
@@ -322,9 +328,17 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
             if row.get("outcome") not in ("invalid", "error", "timeout"):
                 tally["valid"] += 1
                 tally["held"] += bool(row.get("success"))
-            if tally["valid"]:
-                bar.set_postfix_str(f"success {100 * tally['held'] / tally['valid']:.0f}% of "
-                                    f"{tally['valid']} valid", refresh=False)
+            if row.get("outcome") in ("error", "timeout"):
+                short = _short_reason(row)
+                failures[short] = failures.get(short, 0) + 1
+            parts = [f"success {100 * tally['held'] / tally['valid']:.0f}% of {tally['valid']} valid"] \
+                if tally["valid"] else []
+            if failures:
+                top = sorted(failures.items(), key=lambda kv: -kv[1])
+                parts.append(f"{sum(failures.values())} ERROR: " + ", ".join(f"{n} {k}" for k, n in top[:2])
+                             + (", ..." if len(top) > 2 else ""))
+            if parts:
+                bar.set_postfix_str("; ".join(parts), refresh=False)
             bar.update(1)
 
         report = run_tasks(sched, run_payload, on_result=on_result, workers=workers,
@@ -338,8 +352,11 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
         return INTERRUPTED
     if remaining and not hours and not (stop and stop.target_width):
         echo(f"{remaining} trial(s) not recorded", file=sys.stderr)
+    failed = total = 0
     try:
-        echo(summary_text(load_run(folder)))
+        df = load_run(folder)
+        total, failed = len(df), int(df["outcome"].isin(("error", "timeout")).sum())
+        echo(summary_text(df))
     except HarnessError as exc:
         echo(f"no summary: {exc}")
     if gate is not None:
@@ -349,6 +366,10 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
         from .convergence import crosscheck as check
         echo("")
         check(folder, sample=crosscheck, campaign_file=campaign_file, workers=workers, progress=progress, echo=echo)
+    if total and failed > ERROR_SHARE * total:
+        echo(f"\n{failed} of {total} trial(s) ({100 * failed / total:.0f} %) ended in error or timeout, more than the "
+             f"{100 * ERROR_SHARE:g} % allowed: exit code {ERRORED}. The reasons are listed first above.", file=sys.stderr)
+        return ERRORED
     return 0
 
 
@@ -389,6 +410,12 @@ def _gate_text(gate, plan):
             f"{len(places)} cells): {settled} of {len(places)} cells settled, {len(worse)} worse"
             + (f" ({', '.join(worse)})" if worse else "") + f"; {sum(n for _, n in verdicts)} pairs used. "
             "Run `grasp-harness compare` on the two runs for the full table.")
+
+
+def _short_reason(row):
+    """A few words naming why a trial failed: the exception's type, or the executor's own words."""
+    text = str(row.get("error") or row.get("reason") or row.get("outcome"))
+    return text.split(":")[0][:40] if row.get("outcome") == "error" else "timeout"
 
 
 # --- export --------------------------------------------------------------------------------------

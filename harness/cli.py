@@ -92,8 +92,13 @@ def _models(spec):
 
 def _object_row(o):
     size = " x ".join(f"{e * 1e3:.1f}" for e in o.extents)
-    return {"object": o.name, "kind": o.kind, "size_mm": size, "mass_g": round(o.mass * 1e3, 2),
-            "friction": round(o.friction, 3), "restitution": round(o.restitution, 3)}
+    row = {"object": o.name, "kind": o.kind, "size_mm": size, "mass_g": round(o.mass * 1e3, 2),
+           "friction": round(o.friction, 3), "restitution": round(o.restitution, 3)}
+    if o.sources:  # objects read from files: say where mass properties and material came from
+        row["inertia_from"] = o.sources["inertia"]
+        row["material_from"] = ", ".join(f"{k} {v}" for k, v in o.sources.items() if k != "inertia")
+        row["file"] = o.source
+    return row
 
 
 def cmd_check(args):

@@ -22,3 +22,20 @@ MAX_CONVEX_PARTS = 16
 
 # Smallest thing we build: below 0.1 mm the solver's default collision margin dominates.
 MIN_SIZE_M = 1e-4
+
+# Plausibility of mass properties read from files (objects' and grippers' URDFs).
+# Principal moments of any rigid body obey I1 + I2 >= I3 (each is an integral of r^2 - x_k^2 over
+# the mass; standard rigid-body mechanics, recalled from memory). Files print rounded numbers, and a
+# thin disc sits exactly on the bound, so a sum this share below I3 is still accepted.
+INERTIA_TRIANGLE_TOL = 1e-3
+# Radius of gyration k = sqrt(I / m) about an axis through the centre of mass. No material point lies
+# farther from such an axis than the diagonal of the part's bounding box (the centre of mass lies
+# inside the box), so k above the diagonal (plus this share for rounding) is impossible.
+GYRATION_ABOVE_DIAGONAL = 0.02
+# A largest k below this share of the part's largest size means nearly all of its mass sits in a
+# tiny core: a rod has k = 0.29 L, a sphere 0.32 L; our own bound, far below any real lab part,
+# which still catches placeholder values such as 1e-7 kg m^2 on a 100 g, 50 mm part (k = 0.02 L).
+GYRATION_FLOOR = 0.05
+# A centre of mass outside the collision geometry's bounding box by more than this share of the
+# box's diagonal cannot belong to that geometry.
+COM_OUTSIDE_BOX = 0.01

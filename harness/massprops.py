@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["box_inertia", "cylinder_inertia", "sphere_inertia", "capsule", "polyhedron",
-           "combine", "MassProps"]
+           "combine", "MassProps", "inertia_problem"]
 
 
 class MassProps:
@@ -82,3 +82,52 @@ def combine(parts):
         d = c - com
         inertia += rot @ p.inertia @ rot.T + p.volume * (d @ d * np.eye(3) - np.outer(d, d))
     return MassProps(volume, com, inertia)
+
+
+def inertia_problem(mass, inertia, box=None, com=None):
+    """Why `mass` (kg) and `inertia` (3, 3) kg m^2 about the centre of mass cannot be a rigid body's,
+    or None. With `box` = (low (3,), high (3,)) m, the bounding box of the body's geometry in the
+    same frame, also checks the radius of gyration and (with `com` (3,) m) the centre of mass
+    against the geometry. The limits are named tolerances in constants.py."""
+    from .constants import COM_OUTSIDE_BOX, GYRATION_ABOVE_DIAGONAL, GYRATION_FLOOR, INERTIA_TRIANGLE_TOL
+    i = np.asarray(inertia, dtype=float)
+    if not (np.isfinite(mass) and mass > 0):
+        return f"mass must be a finite number > 0 kg; got {mass}"
+    if not np.all(np.isfinite(i)):
+        return "inertia must hold finite numbers; got " + _tensor(i)
+    if not np.any(i):
+        return "inertia is zero (a common placeholder)"
+    moments = np.linalg.eigvalsh((i + i.T) / 2)
+    if moments[0] <= 0:
+        return f"inertia must be positive-definite; its principal moments are {_moments(moments)} kg m^2"
+    if moments[0] + moments[1] < moments[2] * (1 - INERTIA_TRIANGLE_TOL):
+        return (f"principal moments {_moments(moments)} kg m^2 break the triangle inequality "
+                f"I1 + I2 >= I3 that every rigid body obeys")
+    if box is None:
+        return None
+    low, high = (np.asarray(b, dtype=float) for b in box)
+    diagonal = float(np.linalg.norm(high - low))
+    gyration = float(np.sqrt(moments[2] / mass))
+    if gyration > diagonal * (1 + GYRATION_ABOVE_DIAGONAL):
+        return (f"inertia is implausible for a {mass * 1e3:.4g} g part whose geometry spans "
+                f"{diagonal * 1e3:.4g} mm corner to corner: its radius of gyration is {gyration * 1e3:.4g} mm, "
+                f"more than that diagonal (the most any part of it can have)")
+    if gyration < GYRATION_FLOOR * float(np.max(high - low)):
+        return (f"inertia is implausible for a {mass * 1e3:.4g} g part {np.max(high - low) * 1e3:.4g} mm long: "
+                f"its largest radius of gyration is {gyration * 1e3:.4g} mm, below {GYRATION_FLOOR:g} of its "
+                "largest size (a placeholder value?)")
+    if com is not None:
+        c = np.asarray(com, dtype=float)
+        slack = COM_OUTSIDE_BOX * diagonal
+        if np.any(c < low - slack) or np.any(c > high + slack):
+            return (f"centre of mass ({', '.join(f'{x * 1e3:.4g}' for x in c)}) mm lies outside the collision "
+                    "geometry's bounding box")
+    return None
+
+
+def _moments(values):
+    return "(" + ", ".join(f"{v:.4g}" for v in values) + ")"
+
+
+def _tensor(i):
+    return "[" + ", ".join(f"{v:.4g}" for v in i.ravel()) + "]"

@@ -24,7 +24,7 @@ from .plots import agg_pyplot
 
 __all__ = ["build_report", "SECTIONS", "Report", "OUTCOME_STYLE", "worst_trials"]
 
-SECTIONS = {"run": "Run", "outcomes": "Outcomes", "success": "Success rate by variant and object",
+SECTIONS = {"run": "Run", "errors": "Trials that failed to run", "outcomes": "Outcomes", "success": "Success rate by variant and object",
             "metrics": "Slip and drift per variant", "difficulty": "Object difficulty",
             "regression": "Regression against the baseline", "worst": "Worst trials", "safety": "Safety"}
 # outcome -> (fill colour, hatch); the fills differ in lightness as well as hue, hatching tells them apart in print
@@ -74,6 +74,9 @@ def build_report(run, out, against=None, worst=2, campaign_file=None) -> Report:
     df = load_run(run)
     page = Page()
     page.section("run", _metadata(run, record, df))
+    errors = _errors(df)
+    if errors:  # failures first: they limit what every later section can say
+        page.section("errors", errors)
     page.section("outcomes", _outcomes(page, df))
     from .convergence import numerics_flags
     page.section("success", _heat_maps(page, df, numerics_flags(run)))
@@ -189,6 +192,21 @@ def _run_time(events):
     return f"{total:.0f} s in {sessions} session(s)" if total < 120 else f"{total / 60:.1f} min in {sessions} session(s)"
 
 
+# --- trials that failed to run -------------------------------------------------------------------
+
+def _errors(df):
+    """A table of error and timeout trials by reason, or "" when there are none."""
+    from .analysis.summary import error_reasons
+    table = error_reasons(df)
+    if table.empty:
+        return ""
+    rows = [{"trials": int(r["trials"]), "outcome": r["outcome"], "reason": r["reason"], "example trial": r["example"]}
+            for r in table.to_dict("records")]
+    return (f'<p class="note">{int(table["trials"].sum())} of {len(df)} trial(s) ended in error (the harness\'s '
+            "code failed) or timeout; they are left out of every rate and metric below. By reason, most frequent "
+            "first; <code>grasp-harness replay RUN KEY</code> reruns an example.</p>" + _table(rows, numeric=["trials"]))
+
+
 # --- outcomes -------------------------------------------------------------------------------------
 
 def _outcomes(page, df):
@@ -227,6 +245,9 @@ def _heat_maps(page, df, flags=None):
     flagged_at = {(v, o, r) for v, _, o, r in flags}
     plt = agg_pyplot()
     table = summary(df)
+    # an object name used by two object sets is two objects: label those rows with their set
+    sets_of = table.groupby("object")["object_set"].nunique()
+    table["object"] = [f"{s}/{o}" if sets_of[o] > 1 else o for s, o in zip(table["object_set"], table["object"])]
     routines = sorted(table["routine"].unique())
     variants = sorted(table["variant"].unique())
     objects = sorted(table["object"].unique())
@@ -323,7 +344,8 @@ def _distributions(page, df):
                        label="held" if k == 0 else None)
             ax.scatter(x[~held], y[~held], marker="x", s=16, color="#8c2d04", linewidth=0.9,
                        label="not held" if k == 0 else None)
-        ax.set_xscale("log")
+        if any(len(d) for d in data):  # a log axis needs positive data: none when no valid trial has the metric
+            ax.set_xscale("log")
         ax.set_yticks(range(1, len(variants) + 1), [_wrapped(v) for v in variants], fontsize=7)
         ax.invert_yaxis()
         ax.set_xlabel(f"{label}, log axis", fontsize=8)

@@ -26,7 +26,7 @@ import numpy as np
 
 from .fields import Problems, param, parse
 from .phases import approach, close, draw_in, hold, inside_approach, lift, pivot, roll, shake, shift, spread
-from .trial import EJECT_SPEED
+from .trial import EJECT_SPEED, STANDING_KINDS
 
 __all__ = ["ROUTINES", "Routine", "make_routine", "describe"]
 
@@ -115,6 +115,10 @@ class Routine:
             return f"needs driven rollers; the {model.family} family has none (use pinch-lift)"
         if self.needs == "cavity" and instance.kind not in ("ring", "cup"):
             return f"needs a ring or a cup to hold from inside; {instance.name} is a {instance.kind}"
+        if self.needs != "cavity" and model.opening is not None and grasp_width(instance) > model.opening:
+            return (f"the object is too large for the hand: {instance.name} is {grasp_width(instance) * 1e3:.0f} mm "
+                    f"across at its narrowest as it rests, the open fingertips of {model.name} leave "
+                    f"{model.opening * 1e3:.0f} mm")
         return None
 
     def labels(self):
@@ -128,6 +132,15 @@ class Routine:
             if not log.ok:
                 return _failure(ctx, kind), f"{label} failed" + (f": {log.note}" if log.note else "")
         return "held", ""
+
+
+def grasp_width(instance):
+    """The narrowest horizontal size (m) of an object as it rests on the table: standing kinds stand
+    on their base, the others lie with their smallest size vertical (trial.TrialContext). An object
+    wider than a hand's opening at every yaw cannot get between its fingertips."""
+    if instance.kind in STANDING_KINDS:
+        return float(min(instance.extents[:2]))
+    return float(sorted(instance.extents)[1])  # lying flat: the middle size is the narrowest across
 
 
 def _failure(ctx, kind):

@@ -29,7 +29,7 @@ __all__ = ["Perturbation", "TrialContext", "Blowup", "run_trial", "OUTCOMES"]
 
 OUTCOMES = ("held", "dropped", "missed", "ejected", "stalled", "invalid", "error", "timeout")
 # kinds generated with a flat base stand on it; round ones lie with their smallest size vertical
-STANDING_KINDS = {"cylinder", "box", "plate", "disc", "ring", "cup", "polytope", "mesh", "urdf-folder"}
+STANDING_KINDS = {"cylinder", "box", "plate", "disc", "ring", "cup", "polytope", "mesh", "urdf", "urdf-folder"}
 SETTLE_TIME = 0.5  # s; longest wait for the object to come to rest on the table
 REST_SPEED = 1e-3  # m/s; the object counts as resting below this
 APPROACH_CLEARANCE = 0.04  # m; the hand starts this far above its grasp pose

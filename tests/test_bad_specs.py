@@ -49,13 +49,14 @@ close = ["finger0_flex", "finger1_flex"]
 """
 
 _INERTIAL = ('<inertial><origin xyz="0 0 0" rpy="0 0 0"/><mass value="{mass}"/>'
-             '<inertia ixx="{ixx}" ixy="0" ixz="0" iyy="2e-5" iyz="0" izz="2e-5"/></inertial>')
+             '<inertia ixx="{ixx}" ixy="0" ixz="0" iyy="{iyy}" iyz="0" izz="{izz}"/></inertial>')
 
 
-def hand_urdf(palm_ixx="1e-4", palm_mass="0.3"):
-    links = [("palm", palm_mass, palm_ixx), ("finger0", "0.05", "2e-5"), ("finger1", "0.05", "2e-5"),
-             ("camera", "0.02", "1e-6")]
-    body = "".join(f'  <link name="{n}">{_INERTIAL.format(mass=m, ixx=i)}</link>\n' for n, m, i in links)
+def hand_urdf(palm_ixx="1e-4", palm_mass="0.3", palm_izz="1e-4"):
+    links = [("palm", palm_mass, palm_ixx, palm_izz), ("finger0", "0.05", "2e-5", "2e-5"),
+             ("finger1", "0.05", "2e-5", "2e-5"), ("camera", "0.02", "1e-6", "1e-6")]
+    body = "".join(f'  <link name="{n}">{_INERTIAL.format(mass=m, ixx=i, iyy=i if i != "nan" else "1e-4", izz=z)}'
+                   '</link>\n' for n, m, i, z in links)
     for k, x in ((0, 0.03), (1, -0.03)):
         body += (f'  <joint name="finger{k}_flex" type="revolute"><parent link="palm"/><child link="finger{k}"/>'
                  f'<origin xyz="{x} 0 0" rpy="0 0 0"/><axis xyz="0 -1 0"/>'
@@ -64,6 +65,13 @@ def hand_urdf(palm_ixx="1e-4", palm_mass="0.3"):
              '<origin xyz="0 0.04 0" rpy="0 0 0"/></joint>\n')
     return f'<?xml version="1.0"?>\n<robot name="hand">\n{body}</robot>\n'
 
+
+NAN_INERTIA_OBJECT = """<?xml version="1.0"?>
+<robot name="tag"><link name="tag">
+  <inertial><mass value="0.01"/><inertia ixx="nan" ixy="0" ixz="0" iyy="1e-6" iyz="0" izz="1e-6"/></inertial>
+  <collision><geometry><box size="0.03 0.02 0.004"/></geometry></collision>
+</link></robot>
+"""
 
 PART_URDF_OBJECT = """\
 [[object]]
@@ -346,6 +354,12 @@ CASES = [
     Case("urdf_nan_inertia", "hand", files=(write_file("hand.urdf", hand_urdf(palm_ixx="nan")),),
          fields=("urdf",),
          says=("link 'palm' of hand.urdf must have a finite mass > 0 and inertia diagonal > 0", "diagonal [nan,")),
+    Case("urdf_link_inertia_impossible", "hand", files=(write_file("hand.urdf", hand_urdf(palm_izz="5e-4")),),
+         fields=("urdf",),
+         says=("link 'palm' of hand.urdf <inertial>: principal moments (0.0001, 0.0001, 0.0005) kg m^2 break the "
+               "triangle inequality I1 + I2 >= I3",)),
+    Case("roller_larger_than_finger", "duo", (replace("radius_mm = 12\nwidth_mm = 18", "radius_mm = 1200\nwidth_mm = 18"),),
+         fields=("finger.roller.radius_mm",), says=("must not exceed the finger length (80 mm); got 1200",)),
     Case("urdf_not_xml", "hand", files=(write_file("hand.urdf", "<robot><link name='palm'>"),),
          fields=("urdf",), says=("must be a readable URDF (XML)",)),
     # --- object sets -----------------------------------------------------------------------------
@@ -417,11 +431,12 @@ CASES = [
     Case("urdf_folder_missing", "lab", (append(PART_URDF_OBJECT.replace('"parts"', '"no-such-parts"')),),
          fields=("object[8].folder",), says=("must name an existing folder relative to", "(not found)")),
     Case("urdf_folder_without_urdf", "lab", (append(PART_URDF_OBJECT),), files=(_make_dir("parts"),),
-         fields=("object[8].folder",), says=("must hold at least one *.urdf file; 'parts' has none",)),
+         fields=("object[8].folder",), says=("must hold at least one URDF file matching pattern '**/*.urdf'; 'parts' has none",)),
     Case("urdf_folder_nan_inertia", "lab", (append(PART_URDF_OBJECT),),
-         files=(write_file("parts/palm.urdf", hand_urdf(palm_ixx="nan")),),
+         files=(write_file("parts/tag.urdf", NAN_INERTIA_OBJECT),),
          fields=("object[8].folder",),
-         says=("file palm.urdf link 'palm' must have a finite mass > 0 and a positive-definite inertia",)),
+         says=("file tag.urdf: link 'tag' <inertial> <inertia ixx> must be 1 finite number(s); got 'nan'",
+               'set inertia = "geometry" on this object set entry')),
     Case("urdf_folder_with_mass", "lab", (append(PART_URDF_OBJECT + "mass_g = 40\n"),),
          files=(write_file("parts/palm.urdf", hand_urdf()),),
          fields=("object[8].mass_g",), says=("must not be given for 'urdf-folder'",)),

@@ -237,9 +237,9 @@ def tiny(tmp_path):
     return write(tmp_path, TINY, "tiny.toml")
 
 
-def _run(campaign, out, **kw):
+def _run(campaign, out, expect=0, **kw):
     code = run_campaign(campaign, out=out, progress=False, echo=lambda *a, **k: None, **kw)
-    assert code == 0
+    assert code == expect
     (folder,) = [p for p in Path(out).iterdir()] if "resume" not in kw else [Path(kw["resume"])]
     return folder
 
@@ -307,7 +307,8 @@ def test_run_folder_records_campaign_and_load_run_types_columns(tiny, tmp_path):
 def test_timed_out_trials_are_complete_rows(tiny, tmp_path):
     text = TINY.replace("timeout_s = 60", "timeout_s = 0.001").replace(
         '"duo-roller[finger.roller.radius_mm=10]", ', "").replace("trials = 2", "trials = 1")
-    folder = _run(write(tmp_path, text, "fast.toml"), tmp_path / "runs", workers=1)
+    from harness.campaign_commands import ERRORED
+    folder = _run(write(tmp_path, text, "fast.toml"), tmp_path / "runs", workers=1, expect=ERRORED)
     df = load_run(folder)
     assert list(df["outcome"]) == ["timeout"]
     row = df.iloc[0]

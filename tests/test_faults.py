@@ -45,6 +45,7 @@ from test_trials import gripper, same_row
 
 import harness.campaign
 from harness.campaign import expand, load_campaign, run_payload
+from harness.campaign_commands import ERRORED
 from harness.journal import Journal
 from harness.routines import make_routine
 from harness.trial import run_trial
@@ -82,7 +83,7 @@ def test_campaign_records_a_segfault_a_hang_and_a_raise_and_completes_the_rest(t
     campaign = campaign_file(tmp_path, trials=4, timeout_s=TIMEOUT_S)
     monkeypatch.setattr(harness.campaign, "run_payload", faulty_run_payload)
     started = time.monotonic()
-    folder = _run(campaign, tmp_path / "runs", workers=2)
+    folder = _run(campaign, tmp_path / "runs", workers=2, expect=ERRORED)  # 3 of 8 trials failed to run
     assert time.monotonic() - started < 60
     with Journal(folder, create=False) as journal:
         rows = {row["plan_index"]: row for row in journal.rows()}
@@ -152,7 +153,7 @@ NEW_SPECS = {
         "joint 'camera_mount' of hand.urdf names a missing parent link"),
     "urdf_folder_object_with_missing_link": (
         "lab", append(PART_URDF_OBJECT), lambda f, j: _urdf_folder_missing_link(f),
-        "file palm.urdf has joint 'finger1_flex' whose child link 'finger7' is missing"),
+        "file palm.urdf: has joint 'finger1_flex' whose child link 'finger7' is missing"),
     "junk_100mb_as_mesh": (
         "stress", put("[[object]]", "file", '"meshes/junk.obj"', **MESH),
         lambda f, j: (f / "meshes" / "junk.obj").write_bytes(j), "'meshes/junk.obj' is truncated or damaged"),

@@ -547,7 +547,9 @@ def urdf_folder_instance(folder, rpy):
 
 def test_urdf_folder_object_takes_the_files_inertial(tmp_path):
     inst = urdf_folder_instance(tmp_path, (0.0, 0.0, 0.0))
-    assert inst.urdf == (tmp_path / "objs" / "widget.urdf").read_text()
+    # written back as one link of our own with the file's collision box and its <inertial>
+    assert inst.urdf.count("<link ") == 1 and '<box size="0.04 0.02 0.01"/>' in inst.urdf
+    assert inst.sources["inertia"] == "file" and inst.extents == pytest.approx((0.04, 0.02, 0.01), rel=EXACT)
     assert inst.mass == 0.1
     assert_point(inst.com, [0.01, 0.0, 0.002], 0.04, EXACT)
     assert_tensor(inst.inertia, np.diag([1e-5, 4e-5, 4.5e-5]), EXACT)

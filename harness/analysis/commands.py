@@ -202,10 +202,11 @@ def _interval(est, lo, hi, digits=3):
 def summary_text(df, fmt="text"):
     """The `summary` output for a results table."""
     from . import summary
-    from .summary import NOT_VALID, OUTCOMES
+    from .summary import NOT_VALID, OUTCOMES, error_reasons
     table = summary(df)
     if fmt in ("csv", "json"):
         return _render(table, fmt)
+    errors = error_reasons(df)
     shown = [o for o in OUTCOMES if table[o].any()]
     display = table[["variant", "object_set", "object", "routine", "trials", "valid"]].copy()
     if display["object_set"].nunique() == 1:
@@ -222,7 +223,14 @@ def summary_text(df, fmt="text"):
              "from success rates and metrics.",
              "Interval: 95 % Wilson score. p50 median, p90 90th percentile; slip over held trials, drift over "
              "trials that kept the object in the hand (held or stalled), epsilon over valid trials."]
-    return _render(display, fmt, notes)
+    text = _render(display, fmt, notes)
+    if errors.empty:
+        return text
+    # failures first: a run whose trials did not run says little, and the reasons say why
+    head = (f"{int(errors['trials'].sum())} of {len(df)} trial(s) ended in error or timeout; by reason "
+            "(replay the example trial to see it fail):")
+    errors = errors.assign(reason=[r if len(r) <= 160 else r[:157] + "..." for r in errors["reason"]])
+    return "\n".join([head, _render(errors, fmt), "", text])
 
 
 # --- compare ---------------------------------------------------------------------------------------

@@ -13,10 +13,11 @@ import pandas as pd
 from ..errors import HarnessError
 from .stats import wilson_interval
 
-__all__ = ["OUTCOMES", "NOT_VALID", "CELL", "checked", "valid_mask", "summary"]
+__all__ = ["OUTCOMES", "NOT_VALID", "FAILED", "CELL", "checked", "valid_mask", "summary", "error_reasons"]
 
 OUTCOMES = ("held", "dropped", "missed", "ejected", "stalled", "invalid", "error", "timeout")
 NOT_VALID = ("invalid", "error", "timeout")
+FAILED = ("error", "timeout")  # the trial's code failed or hung: no result at all
 CELL = ["variant", "object_set", "object", "routine"]
 SUMMARY_COLUMNS = [*CELL, "outcome", "success", "slip_mm", "drift_mm", "drift_deg", "epsilon"]
 # metric column -> quantiles reported
@@ -79,3 +80,26 @@ def _metric_quantiles(df):
         for q in qs:
             parts[f"{col}_p{round(q * 100)}"] = grouped[col].quantile(q)
     return pd.DataFrame(parts)
+
+
+def error_reasons(df):
+    """Trials that ended in error or timeout, grouped by reason, most frequent first.
+
+    Columns: outcome, reason (the worker's message, or the row's own reason), trials, example (a
+    trial key, for `replay`). Empty (with those columns) when no trial failed."""
+    columns = ["outcome", "reason", "trials", "example"]
+    if "outcome" not in df.columns:
+        return pd.DataFrame(columns=columns)
+    failed = df[df["outcome"].isin(FAILED)]
+    if failed.empty:
+        return pd.DataFrame(columns=columns)
+    blank = pd.Series("", index=failed.index)
+    text = failed["error"] if "error" in failed.columns else blank
+    own = failed["reason"] if "reason" in failed.columns else blank
+    text = text.where(text.notna() & (text.astype(str) != ""), own).fillna("").astype(str)
+    text = text.where(text != "", "(no reason recorded)")
+    keys = failed["trial_key"] if "trial_key" in failed.columns else blank
+    table = (pd.DataFrame({"outcome": failed["outcome"].to_numpy(), "reason": text.to_numpy(), "key": keys.to_numpy()})
+             .groupby(["outcome", "reason"], sort=False).agg(trials=("key", "size"), example=("key", "first"))
+             .reset_index())
+    return table.sort_values("trials", ascending=False, kind="stable").reset_index(drop=True)[columns]

@@ -85,7 +85,7 @@ def build(spec, variant):
         surfaces[f"{n}_pad"] = pad.surface()
     return GripperModel(
         name=variant.name, family="jaw", key=spec_hash("jaw", p), urdf=U.robot(variant.name, parts),
-        close_joints=("jaw0_slide", "jaw1_slide"), surfaces=surfaces,
+        close_joints=("jaw0_slide", "jaw1_slide"), surfaces=surfaces, opening=j.opening,
         summary={"fingers": 2, "opening_mm": j.opening * 1e3, "stroke_mm": j.stroke * 1e3,
                  "pad_friction": pad.friction, "force_n": j.force,
                  "mass_kg": p.palm.mass + 2 * (j.mass + pad.mass)},

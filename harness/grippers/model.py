@@ -46,6 +46,7 @@ class GripperModel:
     pivot_joints: tuple[str, ...] = ()
     roll_joints: tuple[str, ...] = ()
     roller_radius: float | None = None
+    opening: float | None = None  # widest object (m) that fits between the open fingertips; None: unknown
     surfaces: dict[str, Surface] = field(default_factory=dict)
     files: dict[str, bytes] = field(default_factory=dict)  # extra files beside the URDF
     summary: dict[str, object] = field(default_factory=dict)  # key properties for `show`

@@ -84,6 +84,14 @@ class Finger:
         if 2 * self.roller.radius <= self.thickness:
             yield "roller.radius_mm", (f"must exceed half the finger thickness ({self.thickness * 500:g} mm) "
                                        "so the roller, not the finger, meets the object")
+        if self.roller.radius > self.length:
+            # plausibility: a fingertip roller larger than the finger carrying it is a unit slip
+            # (e.g. 1200 for 12 mm), not a design; the finger length is our own limit
+            yield "roller.radius_mm", (f"must not exceed the finger length ({self.length * 1e3:g} mm); "
+                                       f"got {self.roller.radius * 1e3:g}")
+        if self.roller.width > 4 * self.width:
+            yield "roller.width_mm", (f"must not exceed 4 times the finger width ({4 * self.width * 1e3:g} mm); "
+                                      f"got {self.roller.width * 1e3:g}")
         if self.pad is not None and self.pad.length > self.length:
             yield "pad.length_mm", f"must not exceed the finger length ({self.length * 1e3:g} mm)"
 
@@ -101,6 +109,15 @@ class Params:
     def check(self):
         if self.finger.placement_radius > self.palm.radius:
             yield "finger.placement_radius_mm", f"must not exceed the palm radius ({self.palm.radius * 1e3:g} mm)"
+
+
+def tip_opening(f: Finger):
+    """Diameter (m) of the circle the rollers' inner surfaces leave free with the fingers fully open.
+
+    A finger flexed by theta (positive closes) puts its roller centre, L + r along the finger, at
+    placement_radius - (L + r) sin(theta) from the hand axis; the roller reaches r closer."""
+    reach = f.placement_radius - (f.length + f.roller.radius) * math.sin(f.flex.lower) - f.roller.radius
+    return max(2.0 * reach, 0.0)
 
 
 def build(spec, variant):
@@ -151,8 +168,9 @@ def build(spec, variant):
         close_joints=tuple(f"finger{i}_flex" for i in range(f.count)),
         pivot_joints=tuple(f"finger{i}_pivot" for i in range(f.count)),
         roll_joints=tuple(f"finger{i}_roll" for i in range(f.count)),
-        roller_radius=r.radius, surfaces=surfaces,
-        summary={"fingers": f.count, "roller_radius_mm": r.radius * 1e3, "roller_friction": r.friction,
+        roller_radius=r.radius, surfaces=surfaces, opening=tip_opening(f),
+        summary={"fingers": f.count, "roller_radius_mm": r.radius * 1e3, "opening_mm": round(tip_opening(f) * 1e3, 1),
+                 "roller_friction": r.friction,
                  "roller_torque_nm": r.torque, "finger_length_mm": f.length * 1e3,
                  "mass_kg": p.palm.mass + f.count * (f.mass + carrier_mass + r.mass + (f.pad.mass if f.pad else 0))},
     )

@@ -14,6 +14,7 @@ from pathlib import Path
 
 from ..build import content_key
 from ..fields import param, section
+from ..massprops import inertia_problem
 from ..specs import inside
 from .model import GripperModel, Surface
 
@@ -83,18 +84,27 @@ def check_files(params, spec_file, problems):
 
 
 def _check_inertial(link, target, problems):
+    """A link's <inertial> must be a rigid body's: mass > 0, finite, positive-definite inertia whose
+    principal moments obey the triangle inequality (massprops.inertia_problem)."""
     el = link.find("inertial")
     if el is None:
         return
+    keys = ("ixx", "ixy", "ixz", "iyy", "iyz", "izz")
     try:
         mass = float(el.find("mass").get("value"))
-        values = [float(el.find("inertia").get(k)) for k in ("ixx", "iyy", "izz")]
+        i = {k: float(el.find("inertia").get(k, 0)) for k in keys}
+        values = [i["ixx"], i["iyy"], i["izz"]]
     except (AttributeError, TypeError, ValueError):
         problems.add("urdf", f"link {link.get('name')!r} of {target.name} has an unreadable <inertial>")
         return
     if not (math.isfinite(mass) and mass > 0 and all(math.isfinite(v) and v > 0 for v in values)):
         problems.add("urdf", f"link {link.get('name')!r} of {target.name} must have a finite mass > 0 and "
                              f"inertia diagonal > 0; got mass {mass}, diagonal {values}")
+        return
+    tensor = [[i["ixx"], i["ixy"], i["ixz"]], [i["ixy"], i["iyy"], i["iyz"]], [i["ixz"], i["iyz"], i["izz"]]]
+    why = inertia_problem(mass, tensor)
+    if why:
+        problems.add("urdf", f"link {link.get('name')!r} of {target.name} <inertial>: {why}")
 
 
 def build(spec, variant):

@@ -7,22 +7,23 @@ one entry to KINDS (or to FILE_KINDS for kinds that read user files).
 from __future__ import annotations
 
 import difflib
-import xml.etree.ElementTree as ET
 from dataclasses import dataclass, fields
 from pathlib import Path
 
+from ..errors import SpecError
 from ..fields import Problems, Span, parse
 from ..seeds import rng_for
-from .external import (MeshSpec, UrdfFolderSpec, check_mesh, check_urdf_folder, mesh_file, read_urdf_object,
-                       urdf_folder_files)
+from .external import MeshSpec, check_mesh, mesh_file
 from .kinds import KINDS
-from .model import Common, ObjectInstance, draw_material, instance
+from .model import Common, ObjectInstance, instance
+from .urdf_files import UrdfFileSpec, UrdfFolderSpec, check_urdf_file, check_urdf_folder, urdf_instances
 
 __all__ = ["ObjectSet", "load_object_set", "generate", "ALL_KINDS", "ObjectInstance"]
 
 # kinds whose entries read files: spec class, file check, shape function (None: instances are the files)
 FILE_KINDS = {
     "mesh": (MeshSpec, check_mesh, mesh_file),
+    "urdf": (UrdfFileSpec, check_urdf_file, None),
     "urdf-folder": (UrdfFolderSpec, check_urdf_folder, None),
 }
 ALL_KINDS = sorted([*KINDS, *FILE_KINDS])
@@ -96,11 +97,12 @@ def _draws(entry, rng):
 
 
 def generate(object_set: ObjectSet):
-    """Every instance of the set, in file order (pure: no files written)."""
+    """Every instance of the set, in file order (pure: no files written). SpecError if two instances
+    share a name (a folder's file stems can repeat another entry's names)."""
     out = []
     for entry in object_set.entries:
-        if entry.kind == "urdf-folder":
-            out += _urdf_folder_instances(object_set, entry)
+        if FILE_KINDS.get(entry.kind, (None, None, True))[2] is None:
+            out += urdf_instances(object_set, entry)
             continue
         for i in range(entry.count):
             name = f"{entry.name}-{i}" if entry.count > 1 else entry.name
@@ -111,21 +113,11 @@ def generate(object_set: ObjectSet):
             else:
                 shape = FILE_KINDS[entry.kind][2](draws, entry, rng, object_set.file)
             out.append(instance(entry, object_set.name, name, shape, rng, draws))
-    return out
-
-
-def _urdf_folder_instances(object_set, entry):
-    out = []
-    for file in urdf_folder_files(entry, object_set.file):
-        mass, com, inertia = read_urdf_object(file)
-        for i in range(entry.count):
-            name = f"{file.stem}-{i}" if entry.count > 1 else file.stem
-            rng = rng_for(object_set.seed, entry.name, file.name, i)
-            meshes = ET.fromstring(file.read_bytes()).iter("mesh")
-            files = {m.get("filename"): (file.parent / m.get("filename")).read_bytes() for m in meshes}
-            out.append(ObjectInstance(
-                name=name, kind="urdf-folder", set_name=object_set.name, entry=entry.name, mass=mass,
-                volume=float("nan"), com=tuple(map(float, com)), inertia=tuple(tuple(map(float, r)) for r in inertia),
-                extents=(float("nan"),) * 3, draws={}, urdf=file.read_text(), files=files,
-                **draw_material(entry, rng)))
+    seen = {}
+    for inst in out:
+        if inst.name in seen:
+            raise SpecError(object_set.file, [(f"object {inst.entry!r}", f"gives an instance named {inst.name!r}, "
+                                               f"a name entry {seen[inst.name]!r} gives too; instance names must be "
+                                               "unique within a set (rename the entry or the file)")])
+        seen[inst.name] = inst.entry
     return out

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -11,6 +12,8 @@ from ..fields import param, Span
 from ..massprops import MassProps
 
 __all__ = ["Common", "Part", "Shape", "ObjectInstance", "obj_text", "instance", "draw_material"]
+
+FILE_MASS_KINDS = ("urdf", "urdf-folder")  # kinds whose mass may come from their files
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -28,7 +31,7 @@ class Common:
     damping: Span | None = param("damping_n_s_m", "span", ge=0, default=None)
 
     def check(self):
-        if (self.mass is None) == (self.density is None) and self.kind != "urdf-folder":
+        if (self.mass is None) == (self.density is None) and self.kind not in FILE_MASS_KINDS:
             yield "mass_g", "or 'density_kg_m3' must be given, exactly one of them"
         if (self.stiffness is None) != (self.damping is None):
             yield "stiffness_n_m", "and 'damping_n_s_m' must be given together (the engine needs both)"
@@ -75,6 +78,22 @@ class ObjectInstance:
     draws: dict[str, float]  # drawn geometry parameters, SI
     urdf: str
     files: dict[str, bytes] = field(default_factory=dict)
+    sources: dict[str, str] = field(default_factory=dict)  # where inertia and material came from (file kinds)
+    source: str = ""  # the file it was read from, relative to the object set's folder (file kinds)
+
+    def __post_init__(self):
+        # the routines and metrics derive sizes, grip heights and torque scales from these: a NaN
+        # or a zero here would surface as a confusing failure deep inside a trial
+        values = {"mass": [self.mass], "volume": [self.volume], "extents": list(self.extents),
+                  "com": list(self.com), "inertia": [x for row in self.inertia for x in row],
+                  "friction": [self.friction]}
+        for name, xs in values.items():
+            if not all(isinstance(x, (int, float)) and math.isfinite(x) for x in xs):
+                raise ValueError(f"object {self.name!r}{f' ({self.source})' if self.source else ''}: {name} must "
+                                 f"be finite; got {xs}")
+            if name in ("mass", "volume", "extents", "friction") and not all(x > 0 for x in xs):
+                raise ValueError(f"object {self.name!r}{f' ({self.source})' if self.source else ''}: {name} must "
+                                 f"be > 0; got {xs}")
 
 
 def obj_text(vertices, faces):
@@ -84,17 +103,25 @@ def obj_text(vertices, faces):
     return ("\n".join(lines) + "\n").encode()
 
 
-def instance(entry, set_name, name, shape: Shape, rng, draws):
-    """Give a Shape its material (drawn from the entry's spans) and write its URDF text."""
+def instance(entry, set_name, name, shape: Shape, rng, draws, mass_props=None, material=None, sources=None,
+             source=""):
+    """Give a Shape its material (drawn from the entry's spans) and write its URDF text.
+
+    File kinds pass their own `mass_props` (mass kg, com (3,) m, inertia (3, 3) kg m^2 about the com)
+    and `material` (friction, restitution, stiffness, damping), with `sources` saying where each came
+    from and `source` the file."""
     volume = shape.props.volume
-    if entry.mass is not None:
-        mass = entry.mass.draw(rng)
-        density = mass / volume
+    if mass_props is not None:
+        mass, com, inertia = mass_props
     else:
-        density = entry.density.draw(rng)
-        mass = density * volume
-    material = draw_material(entry, rng)
-    inertia = shape.props.inertia * density
+        if entry.mass is not None:
+            mass = entry.mass.draw(rng)
+            density = mass / volume
+        else:
+            density = entry.density.draw(rng)
+            mass = density * volume
+        com, inertia = shape.props.com, shape.props.inertia * density
+    material = material if material is not None else draw_material(entry, rng)
     files, geoms = {}, []
     for k, part in enumerate(shape.parts):
         if part.shape == "mesh":
@@ -103,11 +130,12 @@ def instance(entry, set_name, name, shape: Shape, rng, draws):
             geoms.append((U.geometry("mesh", filename=fname), part.xyz, part.rpy))
         else:
             geoms.append((U.geometry(part.shape, part.dims), part.xyz, part.rpy))
-    text = U.robot(name, [U.link("body", mass, shape.props.com, inertia, geoms, rgba=(0.3, 0.5, 0.8, 1))])
+    text = U.robot(name, [U.link("body", mass, com, inertia, geoms, rgba=(0.3, 0.5, 0.8, 1))])
     return ObjectInstance(
-        name=name, kind=entry.kind, set_name=set_name, entry=entry.name, mass=mass, volume=volume,
-        com=tuple(map(float, shape.props.com)), inertia=tuple(tuple(map(float, row)) for row in inertia),
-        extents=tuple(map(float, shape.extents)), draws=draws, urdf=text, files=files, **material)
+        name=name, kind=entry.kind, set_name=set_name, entry=entry.name, mass=float(mass), volume=volume,
+        com=tuple(map(float, com)), inertia=tuple(tuple(map(float, row)) for row in inertia),
+        extents=tuple(map(float, shape.extents)), draws=draws, urdf=text, files=files,
+        sources=dict(sources or {}), source=source, **material)
 
 
 def draw_material(entry, rng):
