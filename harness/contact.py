@@ -13,10 +13,13 @@ rolling at 2 m/s would show a false slip of about 0.3 m/s (measured in pybullet 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from math import sqrt
 
 import numpy as np
 
-__all__ = ["ContactSample", "sample_contacts"]
+__all__ = ["ContactSample", "sample_contacts", "worst_slip_speed", "MIN_LOAD"]
+
+MIN_LOAD = 1e-6  # N; a link pressing less than this carries no defined slip or friction use
 
 
 @dataclass(frozen=True)
@@ -62,22 +65,18 @@ _EMPTY = ContactSample(*(np.zeros((0, 3)),) * 2, np.zeros(0), np.zeros((0, 3)), 
                        np.zeros(0, dtype=int), np.zeros(0))
 
 
-def sample_contacts(world, obj, other, obj_state=None):
-    """Contacts of body `obj` (as A) with body `other` (as B) and their slip velocities.
-
-    Call right after a step. `obj_state` may pass the object's (position, orientation, velocity,
-    spin) of its COM when the caller has it already.
-    """
+def _slips(world, obj, other, obj_state):
+    """(contact tuple, tangential slip (3 floats)) of every loaded contact of obj (A) with other (B)."""
     # the engine keeps manifold points up to its breaking distance after bodies part; only
     # points that carried load in this step are contacts
     raw = [c for c in world.contacts(obj, other) if c[9] > 0.0]
     if not raw:
-        return _EMPTY
+        return ()
     dt = world.settings.time_step
     com, _, v, w = obj_state or world.raw_state(obj, -1)
     body = _mover(com, v, w, dt)
     movers = {}
-    rows = []
+    out = []
     for c in raw:
         link, on_obj, on_other, n = c[4], c[5], c[6], c[7]  # normal on B points from B into A: into the object
         if link not in movers:
@@ -87,9 +86,34 @@ def sample_contacts(world, obj, other, obj_state=None):
         va, vb = _point_velocity(body, on_obj), _point_velocity(movers[link], on_other)
         rel = [va[i] - vb[i] for i in range(3)]
         along = rel[0] * n[0] + rel[1] * n[1] + rel[2] * n[2]
-        f1, d1, f2, d2 = c[10], c[11], c[12], c[13]
-        rows.append((*((on_obj[i] + on_other[i]) / 2 for i in range(3)), *n, c[9],
-                     *(f1 * d1[i] + f2 * d2[i] for i in range(3)), *(rel[i] - along * n[i] for i in range(3)),
-                     link, -c[8]))
+        out.append((c, [rel[i] - along * n[i] for i in range(3)]))
+    return out
+
+
+def sample_contacts(world, obj, other, obj_state=None):
+    """Contacts of body `obj` (as A) with body `other` (as B) and their slip velocities.
+
+    Call right after a step. `obj_state` may pass the object's (position, orientation, velocity,
+    spin) of its COM when the caller has it already.
+    """
+    rows = []
+    for c, slip in _slips(world, obj, other, obj_state):
+        on_obj, on_other, f1, d1, f2, d2 = c[5], c[6], c[10], c[11], c[12], c[13]
+        rows.append((*((on_obj[i] + on_other[i]) / 2 for i in range(3)), *c[7], c[9],
+                     *(f1 * d1[i] + f2 * d2[i] for i in range(3)), *slip, c[4], -c[8]))
+    if not rows:
+        return _EMPTY
     a = np.array(rows)
     return ContactSample(a[:, 0:3], a[:, 3:6], a[:, 6], a[:, 7:10], a[:, 10:13], a[:, 13].astype(int), a[:, 14])
+
+
+def worst_slip_speed(world, obj, other):
+    """The largest link's slip speed (m/s; normal-force-weighted mean over its points, links with at
+    most MIN_LOAD skipped), as metrics.contact_load computes it from a sample, without building one:
+    it runs after every physics step."""
+    sums = {}
+    for c, (sx, sy, sz) in _slips(world, obj, other, None):
+        s = sums.setdefault(c[4], [0.0, 0.0])
+        s[0] += c[9]
+        s[1] += c[9] * sqrt(sx * sx + sy * sy + sz * sz)
+    return max((weighted / total for total, weighted in sums.values() if total > MIN_LOAD), default=0.0)

@@ -198,7 +198,7 @@ def _plot(table, path, ref):
     slip_err = (table["slip_median_mm"] - table["slip_reference_mm"]).abs() / table["slip_reference_mm"].abs()
     for ax, err, name in ((axes[0], table["difference"].abs(), "|success difference| vs reference"),
                           (axes[1], slip_err, "relative error of median slip vs reference")):
-        for hz, g in table.groupby("step_hz"):
+        for hz, g in table.sort_values("solver_iterations").groupby("step_hz"):
             ax.plot(g["wall_per_trial_s"], err[g.index], "o-", label=f"{hz} Hz")
             for i, r in g.iterrows():
                 ax.annotate(str(int(r["solver_iterations"])), (r["wall_per_trial_s"], err[i]), fontsize=7,

@@ -24,12 +24,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .contact import MIN_LOAD
+
 __all__ = ["SlipTally", "contact_load", "pose_error", "blowup", "SLIP_NOISE_FLOOR", "MAX_SPEED", "MAX_DEPTH"]
 
 SLIP_NOISE_FLOOR = 1e-3  # m/s; a held vial's solver jitter is about 1e-5 mm/s (measured in a 1 s hold), real slip far above
 MAX_SPEED = 8.0  # m/s; nothing in a bench-top grasp moves this fast: a faster object means the solver blew up
 MAX_DEPTH = 0.005  # m of penetration beyond a soft contact's own give (force x compliance): a solver failure
-MIN_FRICTION_LOAD = 1e-6  # N; below this normal force a link's friction use is undefined (skipped)
+MIN_FRICTION_LOAD = MIN_LOAD  # N; below this normal force a link's friction use is undefined (skipped)
 
 
 @dataclass

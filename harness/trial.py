@@ -17,7 +17,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from .contact import sample_contacts
+from .contact import sample_contacts, worst_slip_speed
 from .errors import HarnessError
 from .hand import DOWN, Hand
 from .metrics import SlipTally, blowup, contact_load, pose_error
@@ -252,7 +252,7 @@ class TrialContext:
         slipped = 0.0
         for _ in range(n - 1):
             w.step()
-            slipped += self._slip_speed(sample_contacts(w, self.obj, self.hand.body)) * step
+            slipped += worst_slip_speed(w, self.obj, self.hand.body) * step
         w.step()
         self.steps += n
         state = w.raw_state(self.obj, -1)  # engine tuples, used twice
@@ -272,10 +272,6 @@ class TrialContext:
             raise Blowup(why)
         if self.on_step is not None:
             self.on_step(self)
-
-    def _slip_speed(self, sample):
-        load = contact_load(sample, self.friction_of_link)
-        return load[0] if load else 0.0
 
     def run(self, seconds, each=None):
         """Run for `seconds` (whole control ticks); `each(t)` runs before every tick and may return

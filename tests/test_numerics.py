@@ -93,7 +93,7 @@ def test_slip_distance_of_transients_matches_a_per_step_integral(gripper_name, o
     assert checked >= 2, per_phase
 
 
-@pytest.mark.parametrize("obj", ["ball", "vial-1"])
+@pytest.mark.parametrize("obj", ["ball", "vial-2"])
 def test_a_static_grasp_holds_still_and_its_braked_rollers_do_not_creep(obj):
     # Nominal duo-roller draw-in grasp: over the hold the object must not slip (< 0.05 mm) nor
     # drift (< 0.01 mm), and the braked rollers (commanded speed 0, torque limit far above the

@@ -15,7 +15,7 @@ def _slide(mu, tilt_deg, seconds=1.0):
     block = one_object("box", size_x_mm=40, size_y_mm=40, size_z_mm=20, mass_g=200, friction=mu)
     with World() as w:
         body, downhill = on_incline(w, block, math.radians(tilt_deg), mu, lift=0.0101)
-        w.step(24)  # settle the 0.1 mm drop
+        w.step(round(0.1 / w.settings.time_step))  # settle the 0.1 mm drop
         start = w.pose(body)[0]
         slips = []
         for _ in range(int(seconds / w.settings.time_step)):
@@ -55,9 +55,9 @@ def _roll(mu, tilt_deg):
     ball = one_object("sphere", radius_mm=20, mass_g=100, friction=mu)
     with World() as w:
         body, downhill = on_incline(w, ball, math.radians(tilt_deg), mu, lift=0.02)
-        w.step(24)
+        w.step(round(0.1 / w.settings.time_step))  # settle the drop (0.1 s)
         times, travel, slips = [], [], []
-        for _ in range(240):
+        for _ in range(round(1.0 / w.settings.time_step)):  # fit over 1 s whatever the step
             w.step()
             s = sample_contacts(w, body, w.table)
             slips.append(s.slip_speed().max() if s.count else 0.0)
