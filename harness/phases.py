@@ -14,7 +14,7 @@ import numpy as np
 from scipy.spatial.transform import Rotation
 
 from .steering import RollerContact, contact_jacobian, steer
-from .trial import APPROACH_CLEARANCE, drift_of
+from .trial import APPROACH_CLEARANCE, TABLE_CLEARANCE, drift_of
 
 __all__ = ["approach", "inside_approach", "close", "spread", "draw_in", "lift", "hold", "shake", "pivot",
            "roll", "shift", "release", "roller_contacts", "cavity_radius", "STEER_RTOL",
@@ -45,8 +45,47 @@ def smooth(s):
 
 
 
+SECTION_SAMPLES = 16  # heights at which the object's width is probed for the approach
+SECTION_TIE = 0.0005  # m; sections within this of the widest count as equally wide
+
+
+def section_widths(ctx, heights):
+    """Width (m) of the object's collision geometry along the hand's x axis (the line the first
+    finger closes along) at each world height: rays cast inward from both sides through the rest
+    position. 0 where the rays miss it."""
+    p, cid = ctx.world.p, ctx.world.cid
+    axis = ctx.hand.frame()[1][:, 0] * [1, 1, 0]
+    axis = axis / (np.linalg.norm(axis) or 1.0)
+    far = 0.5
+    x, y = ctx.rest_position[:2]
+    starts, ends = [], []
+    for h in heights:
+        c = np.array([x, y, h])
+        starts += [c + far * axis, c - far * axis]
+        ends += [c, c]
+    hits = p.rayTestBatch([list(v) for v in starts], [list(v) for v in ends], physicsClientId=cid)
+    out = []
+    for a, b in zip(hits[0::2], hits[1::2]):
+        if a[0] == ctx.obj and b[0] == ctx.obj:
+            out.append(float(np.linalg.norm(np.array(a[3]) - np.array(b[3]))))
+        else:
+            out.append(0.0)
+    return np.array(out)
+
+
 def _outside_target(ctx, p):
-    return ctx.wrist_for_grip_height(p.grip_height * ctx.object_top())
+    """Tips' centre at the object's widest section they can reach (rays through its collision
+    geometry), the one nearest `grip_height` among equally wide ones, so irregular objects
+    (polytopes, superquadrics, meshes) are met where they bulge."""
+    top = ctx.object_top()
+    centre, low = ctx.tip_span()
+    reach = low - centre + TABLE_CLEARANCE  # lowest height of the tips' centre over the table
+    heights = np.linspace(min(reach, top), top, SECTION_SAMPLES + 1)[:-1]
+    widths = section_widths(ctx, heights)
+    wanted = p.grip_height * top
+    wide = np.flatnonzero(widths >= widths.max() - SECTION_TIE)
+    best = heights[wide[np.argmin(np.abs(heights[wide] - wanted))]] if widths.max() > 0 else wanted
+    return ctx.wrist_for_grip_height(float(best))
 
 
 def _inside_target(ctx, p):
@@ -78,6 +117,12 @@ def cavity_radius(instance):
 
 def approach(ctx, p, log, target=_outside_target):
     """Come down from above onto the grasp pose, fingers open (or pre-shaped)."""
+    top = ctx.object_top()
+    if target is _outside_target and top <= TABLE_CLEARANCE:
+        # the tips stop TABLE_CLEARANCE above the table: they would close over the object untouched
+        log.note = (f"object top {top * 1e3:.1f} mm, lowest fingertip reach {TABLE_CLEARANCE * 1e3:.1f} mm "
+                    "(surface-draw-in picks parts this low)")
+        return False
     goal = target(ctx, p)
     start = goal + [0.0, 0.0, APPROACH_CLEARANCE]
     ctx.hand.teleport(start, ctx.wrist_orientation)
@@ -108,8 +153,13 @@ def _closing(ctx, p, log, fraction, touching, torque=None):
 
 def close(ctx, p, log):
     """Close the fingers with the chosen share of their torque until their tips stop on the object."""
+    frame = ctx.hand.frame()
+    tips = min(float(frame[0][2] - ctx.hand.link_box(k, frame)[:, 2].mean()) for k in ctx.tips)  # world height
+    top = ctx.object_top()
     ok = _closing(ctx, p, log, 1.0, ctx.tips_touching)
     log.note = f"{ctx.tips_touching()} fingertips touching"
+    if not ok:
+        log.note += f"; object top {top * 1e3:.1f} mm, fingertip centres {tips * 1e3:.1f} mm above the table as they closed"
     return ok
 
 
