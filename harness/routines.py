@@ -105,7 +105,7 @@ class ShakeParams(DrawInParams):
 class SurfaceParams(Params):
     preload: float = param("preload_n", gt=0, le=50, default=2.0,
                            doc="downward force of the rollers on the work surface, held by the wrist")
-    surface_speed: float = param("surface_speed_mm_s", unit="mm", gt=0, le=1.0, default=0.015,
+    surface_speed: float = param("surface_speed_mm_s", unit="mm", gt=0, default=0.015,
                                  doc="roller surface speed while the object climbs (clipped to the motors' limit)")
     close_share: float = param("close_share", gt=0, le=1, default=0.3,
                                doc="share of the closing motors' torque while the rollers straddle the object")
