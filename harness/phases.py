@@ -117,9 +117,11 @@ def cavity_radius(instance):
 
 def approach(ctx, p, log, target=_outside_target):
     """Come down from above onto the grasp pose, fingers open (or pre-shaped)."""
-    top = ctx.object_top()
-    if target is _outside_target and top <= TABLE_CLEARANCE:
+    lo, hi = ctx.world.p.getAABB(ctx.obj, -1, physicsClientId=ctx.world.cid)
+    top = hi[2]
+    if target is _outside_target and hi[2] - lo[2] <= TABLE_CLEARANCE:
         # the tips stop TABLE_CLEARANCE above the table: they would close over the object untouched
+        # (judged on the object's own height: a soft body sunk into the table is a blow-up, not this)
         log.note = (f"object top {top * 1e3:.1f} mm, lowest fingertip reach {TABLE_CLEARANCE * 1e3:.1f} mm "
                     "(surface-draw-in picks parts this low)")
         return False
