@@ -14,10 +14,11 @@ import numpy as np
 from scipy.spatial.transform import Rotation
 
 from .steering import RollerContact, contact_jacobian, steer
-from .trial import APPROACH_CLEARANCE, drift_of
+from .trial import APPROACH_CLEARANCE, TABLE_CLEARANCE, drift_of
 
 __all__ = ["approach", "inside_approach", "close", "spread", "draw_in", "lift", "hold", "shake", "pivot",
-           "roll", "shift", "release", "roller_contacts", "cavity_radius", "STEER_RTOL"]
+           "roll", "shift", "release", "roller_contacts", "cavity_radius", "STEER_RTOL",
+           "touch_down", "straddle", "climb", "contact_elevation"]
 
 LOSS_TIME = 0.1  # s without any touch after the grasp: the object is gone
 STILL_SPEED = 0.002  # m/s (or rad/s for joints); below this a closing or drawing motion has stopped
@@ -31,6 +32,9 @@ SETTLE = 1.0  # s of feedback toward the final pose after a steered manoeuvre, b
 # 0.05 kept a false constraint that stopped a roll about a horizontal axis (singular value ratio
 # 0.052); 0.1 dropped a real one (vertical translation with near-horizontal normals, ratio 0.095).
 STEER_RTOL = 0.07
+STRADDLE_CLEARANCE = 0.004  # m; pre-shaped rollers clear the object's horizontal extent by this
+TOUCH_HEIGHT = 0.008  # m; the rollers' lowest points start this far above the table
+PRESS_TOLERANCE = 0.25  # share of the preload; the press has settled once within it for 0.1 s
 PIVOT_SLACK = math.radians(25)  # a pivot target this far past a limit is taken at the limit (cos 25 deg = 0.9)
 
 
@@ -41,8 +45,47 @@ def smooth(s):
 
 
 
+SECTION_SAMPLES = 16  # heights at which the object's width is probed for the approach
+SECTION_TIE = 0.0005  # m; sections within this of the widest count as equally wide
+
+
+def section_widths(ctx, heights):
+    """Width (m) of the object's collision geometry along the hand's x axis (the line the first
+    finger closes along) at each world height: rays cast inward from both sides through the rest
+    position. 0 where the rays miss it."""
+    p, cid = ctx.world.p, ctx.world.cid
+    axis = ctx.hand.frame()[1][:, 0] * [1, 1, 0]
+    axis = axis / (np.linalg.norm(axis) or 1.0)
+    far = 0.5
+    x, y = ctx.rest_position[:2]
+    starts, ends = [], []
+    for h in heights:
+        c = np.array([x, y, h])
+        starts += [c + far * axis, c - far * axis]
+        ends += [c, c]
+    hits = p.rayTestBatch([list(v) for v in starts], [list(v) for v in ends], physicsClientId=cid)
+    out = []
+    for a, b in zip(hits[0::2], hits[1::2]):
+        if a[0] == ctx.obj and b[0] == ctx.obj:
+            out.append(float(np.linalg.norm(np.array(a[3]) - np.array(b[3]))))
+        else:
+            out.append(0.0)
+    return np.array(out)
+
+
 def _outside_target(ctx, p):
-    return ctx.wrist_for_grip_height(p.grip_height * ctx.object_top())
+    """Tips' centre at the object's widest section they can reach (rays through its collision
+    geometry), the one nearest `grip_height` among equally wide ones, so irregular objects
+    (polytopes, superquadrics, meshes) are met where they bulge."""
+    top = ctx.object_top()
+    centre, low = ctx.tip_span()
+    reach = low - centre + TABLE_CLEARANCE  # lowest height of the tips' centre over the table
+    heights = np.linspace(min(reach, top), top, SECTION_SAMPLES + 1)[:-1]
+    widths = section_widths(ctx, heights)
+    wanted = p.grip_height * top
+    wide = np.flatnonzero(widths >= widths.max() - SECTION_TIE)
+    best = heights[wide[np.argmin(np.abs(heights[wide] - wanted))]] if widths.max() > 0 else wanted
+    return ctx.wrist_for_grip_height(float(best))
 
 
 def _inside_target(ctx, p):
@@ -74,6 +117,14 @@ def cavity_radius(instance):
 
 def approach(ctx, p, log, target=_outside_target):
     """Come down from above onto the grasp pose, fingers open (or pre-shaped)."""
+    lo, hi = ctx.world.p.getAABB(ctx.obj, -1, physicsClientId=ctx.world.cid)
+    top = hi[2]
+    if target is _outside_target and hi[2] - lo[2] <= TABLE_CLEARANCE:
+        # the tips stop TABLE_CLEARANCE above the table: they would close over the object untouched
+        # (judged on the object's own height: a soft body sunk into the table is a blow-up, not this)
+        log.note = (f"object top {top * 1e3:.1f} mm, lowest fingertip reach {TABLE_CLEARANCE * 1e3:.1f} mm "
+                    "(surface-draw-in picks parts this low)")
+        return False
     goal = target(ctx, p)
     start = goal + [0.0, 0.0, APPROACH_CLEARANCE]
     ctx.hand.teleport(start, ctx.wrist_orientation)
@@ -86,10 +137,10 @@ def approach(ctx, p, log, target=_outside_target):
     return pushed < PUSH_LIMIT
 
 
-def _closing(ctx, p, log, fraction, touching):
-    """Drive the fingers toward `fraction` until they stop on the object; `touching()` counts the
-    contacts that make a grasp (at least two)."""
-    ctx.grip = (fraction, p.grip_torque)
+def _closing(ctx, p, log, fraction, touching, torque=None):
+    """Drive the fingers toward `fraction` (with `torque`, default the grip's share of the motors'
+    limit) until they stop on the object; `touching()` counts the contacts that make a grasp (at least two)."""
+    ctx.grip = (fraction, p.grip_torque if torque is None else torque)
     still = [0.0]
 
     def settled(t):
@@ -104,8 +155,13 @@ def _closing(ctx, p, log, fraction, touching):
 
 def close(ctx, p, log):
     """Close the fingers with the chosen share of their torque until their tips stop on the object."""
+    frame = ctx.hand.frame()
+    tips = min(float(frame[0][2] - ctx.hand.link_box(k, frame)[:, 2].mean()) for k in ctx.tips)  # world height
+    top = ctx.object_top()
     ok = _closing(ctx, p, log, 1.0, ctx.tips_touching)
     log.note = f"{ctx.tips_touching()} fingertips touching"
+    if not ok:
+        log.note += f"; object top {top * 1e3:.1f} mm, fingertip centres {tips * 1e3:.1f} mm above the table as they closed"
     return ok
 
 
@@ -364,3 +420,138 @@ def inside_approach(ctx, p, log):
 
 
 inside_approach.__name__ = "approach"  # the same phase, as logged
+
+
+# --- draw-in from the work surface ----------------------------------------------------------
+
+def _roller_inner_radius(ctx):
+    """Smallest distance (m) of any roller's inner surface from the hand axis: centre minus radius
+    (roller axes tangent to the hand axis, as roller-finger builds them)."""
+    frame = ctx.hand.frame()
+    return min(float(np.linalg.norm(ctx.hand.to_hand(ctx.world.link_state(ctx.hand.body, r.roll)[0], frame)[:2]))
+               - r.radius for r in ctx.hand.rollers)
+
+
+def _object_reach(ctx):
+    """Largest horizontal distance (m) of the object's collision box corners from the wrist axis."""
+    lo, hi = ctx.world.p.getAABB(ctx.obj, -1, physicsClientId=ctx.world.cid)
+    centre = ctx.rest_position[:2] + [ctx.pert.wrist_dx, ctx.pert.wrist_dy]
+    return max(math.hypot(x - centre[0], y - centre[1]) for x in (lo[0], hi[0]) for y in (lo[1], hi[1]))
+
+
+def touch_down(ctx, p, log):
+    """Fingers pre-shaped so the rollers straddle the object; the hand comes down until its rollers
+    press the table with the preload (measured roller-table force, held by the wrist's servo)."""
+    clear = _object_reach(ctx) + STRADDLE_CLEARANCE
+    fits = []
+    for fraction in np.linspace(0.0, 1.0, 41):
+        ctx.hand.reset_joints(fraction)
+        if _roller_inner_radius(ctx) >= clear:
+            fits.append(float(fraction))
+    ctx.preshape = max(fits) if fits else 0.0  # the most closed pose that still clears the object
+    ctx.hand.reset_joints(ctx.preshape)
+    frame = ctx.hand.frame()
+    low = max(float(ctx.hand.to_hand(ctx.world.link_state(ctx.hand.body, r.roll)[0], frame)[2]) + r.radius
+              for r in ctx.hand.rollers)  # depth of the lowest roller point below the palm
+    start = ctx.wrist_for_grip_height(0.0)
+    start[2] = low + TOUCH_HEIGHT + ctx.pert.wrist_dz
+    ctx.hand.teleport(start, ctx.wrist_orientation)
+    ctx.grip = (ctx.preshape, p.close_share)
+    ctx.wrist_goal = start
+    ctx.press, ctx.press_offset = p.preload, TOUCH_HEIGHT
+    settled = [0.0]
+
+    def pressed(t):
+        near = abs(ctx.surface_load() - p.preload) <= PRESS_TOLERANCE * p.preload
+        settled[0] = settled[0] + ctx.control_dt if near else 0.0
+        return settled[0] > 0.1
+
+    ctx.run(p.touch_s, pressed)
+    load = ctx.surface_load()
+    pushed = float(np.linalg.norm(ctx.world.pose(ctx.obj)[0][:2] - ctx.rest_position[:2]))
+    log.note = f"rollers press the table with {load:.2f} N (preload {p.preload:.2f} N), object pushed {pushed * 1e3:.1f} mm"
+    if not fits:
+        log.note = (f"the open rollers leave {2 * _roller_inner_radius(ctx) * 1e3:.0f} mm, the object needs "
+                    f"{2 * clear * 1e3:.0f} mm to be straddled")
+        return False
+    return settled[0] > 0.1 and pushed < PUSH_LIMIT
+
+
+def straddle(ctx, p, log):
+    """Close the fingers with `close_share` of their torque, rollers pressing the table and already
+    turning to draw in (a braked roller closing on a small bead pressed it into the table, measured),
+    until the rollers stop on the object. The contact angle at the first touch is kept for `climb`."""
+    ctx.set_rollers([p.surface_speed / r.radius for r in ctx.hand.rollers])
+    ctx.first_elevation = math.nan
+
+    def touching():
+        n = _rollers_touching(ctx)
+        if n and math.isnan(ctx.first_elevation):
+            ctx.first_elevation = contact_elevation(ctx)
+        return n
+
+    ok = _closing(ctx, p, log, 1.0, touching, torque=p.close_share)
+    n = _rollers_touching(ctx)
+    log.note = f"{n} rollers touching"
+    if not ok:
+        top = ctx.object_top()
+        log.note += (f"; object top {top * 1e3:.1f} mm, roller lowest points {_roller_low(ctx) * 1e3:.1f} mm "
+                     "above the table")
+    return ok
+
+
+def _rollers_touching(ctx):
+    return len(ctx.touching_links() & {r.roll for r in ctx.hand.rollers})
+
+
+def _roller_low(ctx):
+    """Height (m) of the lowest roller point above the table top (z = 0)."""
+    return min(float(ctx.world.link_state(ctx.hand.body, r.roll)[0][2]) - r.radius for r in ctx.hand.rollers)
+
+
+def contact_elevation(ctx):
+    """Mean angle (rad) of the roller contact normals (pointing into the object) above the hand's
+    horizontal plane, weighted by normal force; negative: the rollers push the object down. The
+    rolling-mill bite angle is minus this when the roll centres are level."""
+    s, rollers = ctx.last, [r.roll for r in ctx.hand.rollers]
+    mask = np.isin(s.links, rollers) if s is not None else []
+    if s is None or not np.any(mask):
+        return math.nan
+    n = s.normal_force[mask] @ s.normals[mask]
+    up = -ctx.hand.frame()[1][:, 2]  # the hand's z points down into the work
+    return float(math.asin(np.clip(n @ up / np.linalg.norm(n), -1, 1)))
+
+
+def climb(ctx, p, log):
+    """Keep the rollers turning so their surfaces at the object move inward and upward (positive
+    speed draws in), fingers still pressing with `close_share`, until the object's centre is level
+    with the roller centres (the nip: past it the squeeze pushes the object out upward); then grip
+    with `grip_torque`, rollers braked, the wrist no longer pressing."""
+    ctx.set_rollers([p.surface_speed / r.radius for r in ctx.hand.rollers])
+    start = ctx.world.pose(ctx.obj)[0][2]
+    best, idle = [start], [0.0]
+
+    def done(t):
+        ctx.watch_grasp()
+        z = ctx.world.pose(ctx.obj)[0][2]
+        centres = np.mean([ctx.world.link_state(ctx.hand.body, r.roll)[0][2] for r in ctx.hand.rollers])
+        if z >= centres and not ctx.on_table():
+            return True
+        idle[0] = 0.0 if z > best[0] + 1e-4 else idle[0] + ctx.control_dt
+        best[0] = max(best[0], z)
+        return t > 0.3 and idle[0] > 0.3
+
+    ctx.run(p.draw_s, done)
+    ctx.set_rollers(0.0)
+    ctx.press = None
+    ctx.grip = (1.0, p.grip_torque)
+    ctx.run(0.2, lambda t: ctx.watch_grasp())
+    rise = ctx.world.pose(ctx.obj)[0][2] - start
+    log.note = f"climbed {rise * 1e3:.1f} mm"
+    beta = -ctx.first_elevation
+    if not ctx.held() and math.isfinite(beta):
+        mu = float(np.mean([ctx.friction_of_link[r.roll] for r in ctx.hand.rollers]))
+        log.note += (f"; at first touch the roller contact normals were {math.degrees(beta):.0f} deg below level: "
+                     f"drawing in needs mu > tan {math.degrees(beta):.0f} deg = {math.tan(beta):.2f}, "
+                     f"the pair's mu is {mu:.2f}")
+    return ctx.held()

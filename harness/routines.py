@@ -25,7 +25,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .fields import Problems, param, parse
-from .phases import approach, close, draw_in, hold, inside_approach, lift, pivot, roll, shake, shift, spread
+from .phases import (approach, climb, close, draw_in, hold, inside_approach, lift, pivot, roll, shake, shift, spread,
+                     straddle, touch_down)
 from .trial import EJECT_SPEED, STANDING_KINDS
 
 __all__ = ["ROUTINES", "Routine", "make_routine", "describe"]
@@ -100,6 +101,18 @@ class ShakeParams(DrawInParams):
     shake_s: float = param("shake_s", gt=0, default=1.5)
 
 
+@dataclass(frozen=True, kw_only=True)
+class SurfaceParams(Params):
+    preload: float = param("preload_n", gt=0, le=50, default=2.0,
+                           doc="downward force of the rollers on the work surface, held by the wrist")
+    surface_speed: float = param("surface_speed_mm_s", unit="mm", gt=0, default=0.015,
+                                 doc="roller surface speed while the object climbs (clipped to the motors' limit)")
+    close_share: float = param("close_share", gt=0, le=1, default=0.3,
+                               doc="share of the closing motors' torque while the rollers straddle the object")
+    touch_s: float = param("touch_s", gt=0, default=1.5, doc="longest time to find the surface and settle the preload")
+    draw_s: float = param("draw_s", gt=0, default=2.0, doc="longest climb")
+
+
 # --- routines ------------------------------------------------------------------------------
 
 @dataclass(frozen=True)
@@ -159,6 +172,8 @@ ROUTINES = {
     "pivot-and-roll": (PivotRollParams, (*_GRASPED, (pivot, HOLD), (roll, HOLD), (hold, HOLD)), "rollers"),
     "shift": (ShiftParams, (*_GRASPED, (shift, HOLD), (hold, HOLD)), "rollers"),
     "hold-under-shake": (ShakeParams, (*_GRASPED, (shake, HOLD)), "rollers"),
+    "surface-draw-in": (SurfaceParams, ((touch_down, GRASP), (straddle, GRASP), (climb, GRASP), (lift, HOLD),
+                                        (hold, HOLD)), "rollers"),
     "inside-grasp": (Params, ((inside_approach, GRASP), (spread, GRASP), (lift, HOLD), (hold, HOLD)), "cavity"),
 }
 

@@ -44,6 +44,12 @@ TABLE_ROLLING = 5e-5
 BRAKE_SPEED = 0.01  # rad/s; 0.1 mm/s at a 12 mm roller, far below the slip noise floor
 BRAKE_GAIN = 30.0  # 1/s; a stopped roller returns to its stopping angle with a 33 ms time constant
 EJECT_SPEED = 0.5  # m/s; an object leaving the hand faster than this was thrown, not dropped
+# Preload on the work surface (surface draw-in): the wrist's height target moves with the error of
+# the measured roller-surface force, an admittance servo, as an arm's force-limited flange would be
+# driven. PRESS_GAIN (m/s per N) gives a time constant of about 0.1 s against two 30 kN/m treads
+# (1 / (0.1 s x 60 kN/m) = 1.7e-4); PRESS_SPEED caps the wrist's speed while nothing touches.
+PRESS_GAIN = 1.7e-4
+PRESS_SPEED = 0.01  # m/s; at 0.03 the first touch spiked to 40 N against a 2 N preload (measured)
 
 
 class Blowup(HarnessError):
@@ -121,6 +127,8 @@ class TrialContext:
         self.pivot_out = self.pivot_cmd.copy()
         self.grip = None  # (fraction, torque_scale) while the fingers are driven
         self.clamp = None  # fixed closing-joint targets once the grasp is formed (Hand.clamp_targets)
+        self.press = None  # downward force (N) the wrist holds the rollers on the table with, or None
+        self.press_offset = 0.0  # m; height of the rollers' lowest point above z = 0 the preload servo aims at
         self._sent = {}  # last command sent per actuator group
         self.total = SlipTally()
         self.phases: list[PhaseLog] = []
@@ -135,6 +143,7 @@ class TrialContext:
         self.rotation = (math.nan, math.nan)  # (achieved, commanded) rad about the roll axis
         self.shifted = (math.nan, math.nan)  # (achieved, commanded) m along the shift direction
         self.residual = math.nan  # largest steering residual norm during a steered phase (m/s)
+        self.first_elevation = math.nan  # rad; roller contact normals above level at the first touch (surface draw-in)
 
     # --- scene -----------------------------------------------------------------------------
 
@@ -193,10 +202,33 @@ class TrialContext:
     def set_pivots(self, angles):
         self.pivot_cmd = np.broadcast_to(np.asarray(angles, dtype=float), self.pivot_cmd.shape).copy()
 
+    def surface_load(self):
+        """Total normal force (N) of the hand's rollers on the table (loaded contact points only)."""
+        rollers = {r.roll for r in self.hand.rollers}
+        return float(sum(c[9] for c in self.world.contacts(self.hand.body, self.world.table)
+                         if c[3] in rollers and c[9] > 0.0))
+
+    def _press(self):
+        """One tick of the preload servo. The wrist follows the rollers' lowest point (closing
+        fingers swing the rollers up and down by a millimetre or so, which a force servo alone
+        tracks only with a large force error) plus an offset that the force error trims: down
+        while the rollers press the table less than `press`, up while they press more."""
+        load = self.surface_load()
+        # nothing touches yet: come down at the capped speed (the servo alone would creep)
+        rate = PRESS_GAIN * (load - self.press) if load > 0.0 else -PRESS_SPEED
+        self.press_offset += min(max(rate, -PRESS_SPEED), PRESS_SPEED) * self.control_dt
+        frame = self.hand.frame()
+        low = max(float(self.hand.to_hand(self.world.link_state(self.hand.body, r.roll)[0], frame)[2]) + r.radius
+                  for r in self.hand.rollers)
+        self.wrist_goal = np.array([*self.wrist_goal[:2], low + self.press_offset])
+        self.move_wrist(self.wrist_goal)
+
     def _actuate(self):
         """Send the commands of one control tick (a motor keeps its last
         command, so unchanged roller, pivot and clamp commands are not sent again)."""
         dt = self.control_dt
+        if self.press is not None:
+            self._press()
         gain = 1.0 if self.pert.actuator_lag <= 0 else 1.0 - math.exp(-dt / self.pert.actuator_lag)
         self.roller_out += gain * (self.roller_cmd * self.speed_factor - self.roller_out)
         # a lagging roller told to stop comes to rest and brakes once it is slower than BRAKE_SPEED

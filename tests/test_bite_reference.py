@@ -1,0 +1,66 @@
+"""Angle of bite: counter-rotating rollers draw a body into their gap unaided only when
+mu >= tan(alpha), alpha the angle between the contact normal and the line of the roll centres.
+
+Source: rolling-mill theory, G. E. Dieter, Mechanical Metallurgy (McGraw-Hill), chapter on the
+rolling of metals (condition for the roll to bite the workpiece); the same result in S. Kalpakjian
+and S. R. Schmid, Manufacturing Engineering and Technology, chapter on rolling. Force balance along
+the line through the body's centre perpendicular to the roll centres, per roller: drive mu N cos(alpha)
+against the normal's push-out N sin(alpha); the body enters when mu >= tan(alpha).
+
+Measured with the duo-roller's 12 mm rollers and a 10 mm ball (ball travel after 1 s):
+the switch lies between 0.90 and 0.95 tan(alpha) at 10 deg and between 0.95 and 1.05 tan(alpha) at
+20 and 30 deg, both at the default numerics (100 iterations, 240 Hz) and at 400 iterations, 480 Hz.
+"""
+
+import math
+
+import numpy as np
+import pytest
+
+from harness.hand import Hand
+from harness.world import PhysicsSettings, World, add_object
+from physics_scenes import one_object, roller_hand
+
+R_BALL = 0.010  # m
+SQUEEZE = 0.00005  # m; the rollers start this far into the ball (a 0.3 mm overlap in the 30 kN/m tread fired the ball out at 10 deg)
+
+
+def _bite(alpha, mu, seconds=1.0, speed=2.0):
+    """Hand-frame travel (m, positive toward the palm) of a ball placed so each roller meets it at
+    `alpha` from the line of the roll centres, the rollers driving their surfaces toward the palm;
+    gravity off. The fingers press with a quarter of their torque."""
+    model = roller_hand(friction=1.0)
+    r = model.roller_radius
+    ball = one_object("sphere", radius_mm=R_BALL * 1e3, mass_g=10, friction=mu * mu)  # pair mu = sqrt(1 x mu^2)
+    with World(PhysicsSettings(gravity=0.0)) as world:
+        hand = Hand(world, model, (0, 0, 0.3))
+        # flex angle whose roller centres sit (r + R) cos(alpha) - SQUEEZE from the hand axis
+        lo, hi = hand.limits[hand.close_j[0]][:2]
+        fractions = np.linspace(0, 1, 2001)
+        radial = []
+        for f in fractions:
+            hand.reset_joints(f)
+            radial.append(abs(world.link_state(hand.body, hand.roll_j[0])[0][0]))
+        want = (r + R_BALL) * math.cos(alpha) - SQUEEZE
+        f = float(fractions[int(np.argmin(np.abs(np.array(radial) - want)))])
+        hand.reset_joints(f)
+        centre_z = float(np.mean([world.link_state(hand.body, j)[0][2] for j in hand.roll_j]))
+        start = centre_z - (r + R_BALL) * math.sin(alpha)  # below the roll centres: away from the palm
+        body = add_object(world, ball, (0.0, 0.0, start))
+        for k in range(int(seconds * world.settings.step_hz)):
+            if k % world.settings.steps_per_tick == 0:
+                hand.close(1.0, 0.25)
+                hand.set_rollers(speed)
+            world.step()
+            if not world.contacts(body, hand.body):
+                break
+        return float(world.pose(body)[0][2] - start), (r + R_BALL) * math.sin(alpha)
+
+
+@pytest.mark.parametrize("alpha_deg", [10, 20, 30])
+def test_rollers_bite_a_ball_above_tan_alpha_and_push_it_out_below(alpha_deg):
+    alpha = math.radians(alpha_deg)
+    drawn, to_centres = _bite(alpha, 1.1 * math.tan(alpha))
+    pushed, _ = _bite(alpha, 0.9 * math.tan(alpha))
+    assert drawn > to_centres, f"mu = 1.1 tan(alpha): moved {drawn * 1e3:.1f} mm, the line of centres is {to_centres * 1e3:.1f} mm up"
+    assert pushed < -0.002, f"mu = 0.9 tan(alpha): moved {pushed * 1e3:.1f} mm, expected pushed out"

@@ -1,0 +1,69 @@
+"""Draw-in from the work surface (routine `surface-draw-in`): rollers pressed on the table with a
+preload straddle a low part, turn so their surfaces at it move inward and upward, and the part
+climbs into the hand (the rolling-mill bite condition, see tests/test_bite_reference.py)."""
+
+from functools import lru_cache
+from pathlib import Path
+
+import pytest
+
+from harness.errors import SpecError
+from harness.grippers import build_models
+from harness.objects import generate
+from harness.routines import make_routine
+from harness.specs import load_any, load_gripper
+from harness.trial import run_trial
+
+MODELS = Path(__file__).resolve().parents[1] / "models"
+
+
+@lru_cache(maxsize=None)
+def own(name):
+    """The spec's own variant (duo-roller: 12 mm rollers)."""
+    spec = load_gripper(MODELS / "grippers" / f"{name}.toml")
+    models = build_models(spec)
+    return next((m for m in models if m.name == spec.own), models[0])
+
+
+@lru_cache(maxsize=None)
+def objects(set_name):
+    return {o.name: o for o in generate(load_any(MODELS / "objects" / f"{set_name}.toml"))}
+
+
+@pytest.mark.parametrize("name", ["screw-cap-0", "screw-cap-1", "sample-tube-0", "sample-tube-1", "seal-ring"])
+def test_duo_roller_picks_low_lab_bench_parts_off_the_table(name):
+    # the ordinary draw-in grasp misses all of these (its tips stay 3 mm above the table and meet
+    # them at or above their top); nominal trials at the default physics
+    row = run_trial(own("duo-roller"), objects("lab-bench")[name], make_routine("surface-draw-in"), seed=0)
+    assert row["outcome"] == "held", row["reason"]
+    assert row["touch-down_ok"] and row["straddle_ok"] and row["climb_ok"] and row["hold_ok"]
+
+
+def test_a_cover_slip_is_missed_with_the_contact_angle_the_physics_gives():
+    # a 1.5 mm plate edge meets a 12 mm roller at theta from its lowest point, cos(theta) = (r - h)/r,
+    # so drawing it in needs mu > cot(theta) = 1.8 (rigid contact); the pair's mu is 0.59
+    row = run_trial(own("duo-roller"), objects("stress")["cover-slip"], make_routine("surface-draw-in"), seed=0)
+    assert row["outcome"] == "missed"
+    assert "needs mu > tan" in row["reason"] and "the pair's mu is 0.59" in row["reason"]
+
+
+def test_the_jaw_has_no_rollers_to_draw_in_with():
+    reason = make_routine("surface-draw-in").unsuitable(own("bench-jaw"), objects("lab-bench")["screw-cap-0"])
+    assert reason.startswith("needs driven rollers")
+
+
+def test_surface_draw_in_parameters_are_checked_before_any_trial():
+    with pytest.raises(SpecError) as exc:
+        make_routine("surface-draw-in", {"preload_n": -1, "close_share": 2, "surface_speed_mm_s": 0}, file="c.toml",
+                     prefix="routine.surface-draw-in")
+    text = str(exc.value)
+    assert "c.toml: field 'routine.surface-draw-in.preload_n' must be a number > 0 and <= 50; got -1" in text
+    assert "'routine.surface-draw-in.close_share' must be a number > 0 and <= 1; got 2" in text
+    assert "'routine.surface-draw-in.surface_speed_mm_s' must be a number > 0; got 0" in text
+
+
+def test_draw_in_grasp_reports_an_object_below_the_tips_reach_in_numbers():
+    row = run_trial(own("duo-roller"), objects("stress")["washer"], make_routine("draw-in-grasp"), seed=0)
+    assert row["outcome"] == "missed"
+    assert row["reason"] == ("approach failed: object top 1.5 mm, lowest fingertip reach 3.0 mm "
+                             "(surface-draw-in picks parts this low)")
