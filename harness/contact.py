@@ -53,20 +53,15 @@ def _mover(com, v, w, dt):
     return [com[i] - v[i] * dt for i in range(3)], v, w
 
 
-def _point_velocity(mover, x):
-    """v + w x (x - com) of a mover at point x, in plain floats (a contact has few points: numpy's
-    per-call cost would be most of the time here)."""
-    (cx, cy, cz), (vx, vy, vz), (wx, wy, wz) = mover
-    rx, ry, rz = x[0] - cx, x[1] - cy, x[2] - cz
-    return vx + wy * rz - wz * ry, vy + wz * rx - wx * rz, vz + wx * ry - wy * rx
-
-
 _EMPTY = ContactSample(*(np.zeros((0, 3)),) * 2, np.zeros(0), np.zeros((0, 3)), np.zeros((0, 3)),
                        np.zeros(0, dtype=int), np.zeros(0))
 
 
 def _slips(world, obj, other, obj_state):
-    """(contact tuple, tangential slip (3 floats)) of every loaded contact of obj (A) with other (B)."""
+    """(contact tuple, tangential slip (3 floats)) of every loaded contact of obj (A) with other (B).
+
+    Written out in plain floats with one engine query for all touching links: it runs after every
+    physics step while a grasp is changing."""
     # the engine keeps manifold points up to its breaking distance after bodies part; only
     # points that carried load in this step are contacts
     raw = [c for c in world.contacts(obj, other) if c[9] > 0.0]
@@ -76,17 +71,21 @@ def _slips(world, obj, other, obj_state):
     com, _, v, w = obj_state or world.raw_state(obj, -1)
     body = _mover(com, v, w, dt)
     movers = {}
+    for link, state in world.raw_states(other, {c[4] for c in raw}).items():
+        movers[link] = _mover(state[0], state[2], state[3], dt)
+    (ax, ay, az), (avx, avy, avz), (awx, awy, awz) = body
     out = []
     for c in raw:
-        link, on_obj, on_other, n = c[4], c[5], c[6], c[7]  # normal on B points from B into A: into the object
-        if link not in movers:
-            lcom, _, lv, lw = world.raw_state(other, link)
-            movers[link] = _mover(lcom, lv, lw, dt)
+        a, b, n = c[5], c[6], c[7]  # normal on B points from B into A: into the object
+        (bx, by, bz), (bvx, bvy, bvz), (bwx, bwy, bwz) = movers[c[4]]
         # each body's material point is taken on its own surface, against its start-of-step com
-        va, vb = _point_velocity(body, on_obj), _point_velocity(movers[link], on_other)
-        rel = [va[i] - vb[i] for i in range(3)]
-        along = rel[0] * n[0] + rel[1] * n[1] + rel[2] * n[2]
-        out.append((c, [rel[i] - along * n[i] for i in range(3)]))
+        rx, ry, rz = a[0] - ax, a[1] - ay, a[2] - az
+        sx, sy, sz = b[0] - bx, b[1] - by, b[2] - bz
+        ux = avx + awy * rz - awz * ry - (bvx + bwy * sz - bwz * sy)
+        uy = avy + awz * rx - awx * rz - (bvy + bwz * sx - bwx * sz)
+        uz = avz + awx * ry - awy * rx - (bvz + bwx * sy - bwy * sx)
+        along = ux * n[0] + uy * n[1] + uz * n[2]
+        out.append((c, (ux - along * n[0], uy - along * n[1], uz - along * n[2])))
     return out
 
 

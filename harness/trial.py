@@ -20,7 +20,7 @@ import numpy as np
 from .contact import sample_contacts, worst_slip_speed
 from .errors import HarnessError
 from .hand import DOWN, Hand
-from .metrics import SlipTally, blowup, contact_load, pose_error
+from .metrics import SLIP_NOISE_FLOOR, SlipTally, blowup, contact_load, pose_error
 from .quality import grasp_quality
 from .seeds import rng_for
 from .world import CONTROL_HZ, PhysicsSettings, World, add_object, pair_friction
@@ -131,6 +131,8 @@ class TrialContext:
         self.press_offset = 0.0  # m; height of the rollers' lowest point above z = 0 the preload servo aims at
         self._sent = {}  # last command sent per actuator group
         self.total = SlipTally()
+        self._slipping = True  # integrate slip step by step until a sample shows the grasp sticking
+        self._quiet = False  # no actuator or wrist motion in this tick (see tick)
         self.phases: list[PhaseLog] = []
         self.last = None  # latest ContactSample of the object against the hand
         self.grasp_time = math.nan  # first time the object was held (s from the approach's start)
@@ -234,6 +236,10 @@ class TrialContext:
         # a lagging roller told to stop comes to rest and brakes once it is slower than BRAKE_SPEED
         self.roller_out[(self.roller_cmd == 0.0) & (np.abs(self.roller_out) < BRAKE_SPEED)] = 0.0
         self.pivot_out += gain * (self.pivot_cmd - self.pivot_out)
+        wrist = (tuple(self.hand.wrist_target[0].tolist()), self.hand.wrist_target[1])
+        self._quiet = (self.grip is None or self.clamp is not None) and not self.roller_out.any() \
+            and self._sent.get("wrist") == wrist and not self._changed("pivots-quiet", self.pivot_out)
+        self._sent["wrist"] = wrist
         if len(self.roller_out):
             speeds = self._braked(self.roller_out)
             if self._changed("rollers", speeds):
@@ -279,19 +285,29 @@ class TrialContext:
         self._actuate()
         w = self.world
         n, step = w.settings.steps_per_tick, w.settings.time_step
-        # slip distance is integrated over every physics step: held from a 60 Hz sample it read up
-        # to a third low in transients (slip that starts and stops between samples)
+        # Slip distance: held from a 60 Hz sample it read up to a third low in transients (slip that
+        # starts and stops between samples), so every physics step's slip speed is integrated while
+        # anything can change the contact forces: an actuator or the wrist in motion, or the object
+        # slipping at the last sample. A quiet, sticking grasp (a hold) skips that work and holds its
+        # end-of-tick sample for the tick: a slip starting there shows in that sample and is then
+        # integrated step by step.
+        slipping = self._slipping or not self._quiet
         slipped = 0.0
-        for _ in range(n - 1):
+        if slipping:
+            for _ in range(n - 1):
+                w.step()
+                slipped += worst_slip_speed(w, self.obj, self.hand.body) * step
             w.step()
-            slipped += worst_slip_speed(w, self.obj, self.hand.body) * step
-        w.step()
+        else:
+            w.step(n)
         self.steps += n
         state = w.raw_state(self.obj, -1)  # engine tuples, used twice
         self.last = sample_contacts(w, self.obj, self.hand.body, obj_state=state)
         dt = self.control_dt
         load = contact_load(self.last, self.friction_of_link)
-        slipped += (load[0] if load else 0.0) * step
+        speed = load[0] if load else 0.0
+        slipped += speed * (step if slipping else dt)
+        self._slipping = speed > SLIP_NOISE_FLOOR
         self.total.add(load, dt, slipped)
         if self.phases:
             self.phases[-1].tally.add(load, dt, slipped)

@@ -177,6 +177,18 @@ class World:
         s = p.getLinkState(body, link, computeLinkVelocity=1, computeForwardKinematics=1, physicsClientId=cid)
         return s[0], s[1], s[6], s[7]
 
+    def raw_states(self, body, links):
+        """{link: raw_state} of several links of one body, with one engine query for the links >= 0."""
+        out = {}
+        rest = [link for link in links if link >= 0]
+        if -1 in links:
+            out[-1] = self.raw_state(body, -1)
+        if rest:
+            states = self.p.getLinkStates(body, rest, computeLinkVelocity=1, computeForwardKinematics=1,
+                                          physicsClientId=self.cid)
+            out.update({link: (s[0], s[1], s[6], s[7]) for link, s in zip(rest, states)})
+        return out
+
     def contacts(self, body_a, body_b, link_b=None):
         kw = {} if link_b is None else {"linkIndexB": link_b}
         return self.p.getContactPoints(bodyA=body_a, bodyB=body_b, physicsClientId=self.cid, **kw)
