@@ -100,22 +100,21 @@ def run_at(tasks, settings, folder, record, *, workers=None, timeout=None, progr
         write_campaign(folder, {**record, "physics": settings.record(), "planned_trials": len(tasks),
                                 "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
                                 "environment": environment()})
+    from .campaign import failure_inputs, run_payload
     physics = settings.record()
     with Journal(folder) as journal:
         done = journal.done_keys()
-        todo = [(t.trial_key, {**t.payload, "physics": physics}) for t in tasks if t.trial_key not in done]
+        todo = {t.trial_key: {**t.payload, "physics": physics} for t in tasks if t.trial_key not in done}
         bar = tqdm(total=len(tasks), initial=len(tasks) - len(todo), unit="trial", disable=not progress,
                    desc=label or settings.label(), dynamic_ncols=True, leave=False)
 
         def on_result(key, row):
-            if "gripper" not in row:
-                from .campaign import failure_inputs
-                row = {**failure_inputs(dict(todo)[key]), "success": False, **row}
+            if "gripper" not in row:  # the executor's error / timeout row: add the trial's inputs
+                row = {**failure_inputs(todo[key]), "success": False, **row}
             journal.add(row)
             bar.update(1)
 
-        from .campaign import run_payload
-        report = run_tasks(todo, run_payload, on_result=on_result, workers=workers, timeout=timeout)
+        report = run_tasks(todo.items(), run_payload, on_result=on_result, workers=workers, timeout=timeout)
         bar.close()
     if report.interrupted:
         raise KeyboardInterrupt

@@ -4,10 +4,10 @@ Slip (see contact.py for how each contact's slip velocity is measured): at each 
 links touching the object are taken one by one; a link's slip speed is the normal-force-weighted
 mean over its contact points (one patch of a pad reports up to four manifold points: summing them
 would count one sliding patch four times). The sample's slip speed is the largest link's, i.e. the
-worst contact; the peak is its maximum. Slip distance is the sum over control intervals of the
-largest link's tangential slip displacement over the interval (contact.py: the motion of the
-touching material points, not a sampled speed held for the interval), and the slipping share is
-the part of the contact time whose mean slip speed exceeds SLIP_NOISE_FLOOR.
+worst contact; the peak is its maximum (both at the control ticks). Slip distance integrates the
+worst link's slip speed over every physics step while the grasp can change (trial.TrialContext.tick,
+contact.worst_slip_speed), and the slipping share is the part of the contact time whose mean slip
+speed over a control interval exceeds SLIP_NOISE_FLOOR.
 
 Friction use of a link is |sum of its friction forces| / (mu x sum of its normal forces): 1 means
 the contact is on the edge of its friction cone (sliding or about to). Mean over contact time and
@@ -31,7 +31,6 @@ __all__ = ["SlipTally", "contact_load", "pose_error", "blowup", "SLIP_NOISE_FLOO
 SLIP_NOISE_FLOOR = 1e-3  # m/s; a held vial's solver jitter is about 1e-5 mm/s (measured in a 1 s hold), real slip far above
 MAX_SPEED = 8.0  # m/s; nothing in a bench-top grasp moves this fast: a faster object means the solver blew up
 MAX_DEPTH = 0.005  # m of penetration beyond a soft contact's own give (force x compliance): a solver failure
-MIN_FRICTION_LOAD = MIN_LOAD  # N; below this normal force a link's friction use is undefined (skipped)
 
 
 @dataclass
@@ -88,7 +87,7 @@ def contact_load(sample, friction_of_link):
         s[4] += fz
     worst_slip, worst_use = 0.0, 0.0
     for link, (total, weighted, fx, fy, fz) in sums.items():
-        if total <= MIN_FRICTION_LOAD:
+        if total <= MIN_LOAD:  # no defined slip or friction use
             continue
         worst_slip = max(worst_slip, weighted / total)
         worst_use = max(worst_use, math.sqrt(fx * fx + fy * fy + fz * fz) / (friction_of_link[link] * total))

@@ -236,16 +236,16 @@ class TrialContext:
         # a lagging roller told to stop comes to rest and brakes once it is slower than BRAKE_SPEED
         self.roller_out[(self.roller_cmd == 0.0) & (np.abs(self.roller_out) < BRAKE_SPEED)] = 0.0
         self.pivot_out += gain * (self.pivot_cmd - self.pivot_out)
-        wrist = (tuple(self.hand.wrist_target[0].tolist()), self.hand.wrist_target[1])
-        self._quiet = (self.grip is None or self.clamp is not None) and not self.roller_out.any() \
-            and self._sent.get("wrist") == wrist and not self._changed("pivots-quiet", self.pivot_out)
-        self._sent["wrist"] = wrist
         if len(self.roller_out):
             speeds = self._braked(self.roller_out)
             if self._changed("rollers", speeds):
                 self.hand.set_rollers(speeds)
-        if len(self.pivot_out) and self._changed("pivots", self.pivot_out):
+        pivots_moved = bool(len(self.pivot_out)) and self._changed("pivots", self.pivot_out)
+        if pivots_moved:
             self.hand.set_pivots(self.pivot_out)
+        wrist_moved = self._changed("wrist", (tuple(self.hand.wrist_target[0].tolist()), self.hand.wrist_target[1]))
+        self._quiet = (self.grip is None or self.clamp is not None) and not self.roller_out.any() \
+            and not wrist_moved and not pivots_moved
         if self.grip is None:
             if self._changed("fingers", "open"):
                 self.hand.open()

@@ -51,9 +51,10 @@ def _paired(coarse, fine):
         missing = [c for c in ("trial_key", "outcome", "success", "slip_mm", "drift_mm", *CELL) if c not in df]
         if missing:
             raise HarnessError(f"the {name} results lack column(s) {', '.join(missing)}")
-    keep = ["trial_key", *CELL, "outcome", "success", "slip_mm", "drift_mm", "wall_s"]
-    extra = [c for c in ("hold_slip_mm",) if c in coarse and c in fine]
-    pairs = coarse[keep + extra].merge(fine[keep[:1] + keep[5:] + extra], on="trial_key", suffixes=("_c", "_f"))
+    measured = ["outcome", "success", "slip_mm", "drift_mm", "wall_s",
+                *[c for c in ("hold_slip_mm",) if c in coarse and c in fine]]
+    pairs = coarse[["trial_key", *CELL, *measured]].merge(fine[["trial_key", *measured]], on="trial_key",
+                                                           suffixes=("_c", "_f"))
     valid = ~pairs["outcome_c"].isin(NOT_VALID) & ~pairs["outcome_f"].isin(NOT_VALID)
     if not valid.any():
         raise HarnessError("the two result tables share no trial that is valid in both")
