@@ -6,11 +6,7 @@ import argparse
 import sys
 
 from . import __version__
-
-SAFETY = ("Simulated success is no guarantee for hardware: rollers and pinch points can trap fingers and "
-          "loose clothing. Validate on hardware with reduced force and speed limits and follow local "
-          "machine-safety rules and the robot maker's instructions.")
-
+from .safety import SAFETY
 
 def _parser():
     p = argparse.ArgumentParser(
@@ -45,15 +41,15 @@ def _parser():
     t.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     t.add_argument("--plot", metavar="FILE.png",
                    help="also write the object's position in the hand, slip speed and contact force over time as a PNG")
-    from .analysis.commands import register
+    from .commands.analysis import register
     register(sub)
-    from .campaign_commands import register as register_campaign
+    from .commands.campaign import register as register_campaign
     register_campaign(sub)
-    from .report_commands import register as register_report
+    from .commands.report import register as register_report
     register_report(sub)
-    from .convergence import register as register_convergence
+    from .commands.convergence import register as register_convergence
     register_convergence(sub)
-    from .bench import register as register_bench
+    from .commands.bench import register as register_bench
     register_bench(sub)
     return p
 
@@ -61,10 +57,7 @@ def _parser():
 def main(argv=None):
     args = _parser().parse_args(argv)
     from .errors import HarnessError, SpecError
-    from .analysis import commands as analysis
-    from . import campaign_commands as campaign
-    from . import bench, convergence
-    from . import report_commands as report
+    from .commands import analysis, bench, campaign, convergence, report
     handlers = {"check": cmd_check, "build": cmd_build, "show": cmd_show, "try": cmd_try,
                 "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank,
                 "plan": campaign.cmd_plan, "run": campaign.cmd_run, "export": campaign.cmd_export,
@@ -82,8 +75,8 @@ def main(argv=None):
 
 def _models(spec):
     """(name, urdf, files) of every model a loaded spec or set describes, and one row each for `show`."""
-    from .grippers import build_models
-    from .objects import ObjectSet, generate
+    from .models.grippers import build_models
+    from .models.objects import ObjectSet, generate
     if isinstance(spec, ObjectSet):
         return [(o.name, o.urdf, o.files, _object_row(o)) for o in generate(spec)]
     return [(m.name, m.urdf, m.files, {"variant": m.name, "family": m.family, **m.summary})
@@ -103,7 +96,7 @@ def _object_row(o):
 
 def cmd_check(args):
     from .errors import SpecError
-    from .specs import load_any
+    from .models.specs import load_any
     failed = 0
     for f in args.files:
         try:
@@ -119,8 +112,8 @@ def cmd_check(args):
 
 
 def cmd_build(args):
-    from .build import materialise
-    from .specs import load_any
+    from .models.build import materialise
+    from .models.specs import load_any
     spec = load_any(args.file)
     for name, urdf, files, _ in _models(spec):
         print(materialise(name, urdf, files, args.out))
@@ -128,7 +121,7 @@ def cmd_build(args):
 
 
 def cmd_show(args):
-    from .specs import load_any
+    from .models.specs import load_any
     from .table import format_table
     rows = [row for *_, row in _models(load_any(args.file))]
     print(format_table(rows))
@@ -167,13 +160,13 @@ def cmd_try(args):
     import math
 
     from .errors import SpecError
-    from .grippers import build_models
-    from .objects import generate
-    from .routines import make_routine
-    from .specs import load_any, load_gripper
-    from .campaign import physics_settings
+    from .models.grippers import build_models
+    from .models.objects import generate
+    from .sim.routines import make_routine
+    from .models.specs import load_any, load_gripper
+    from .campaigns.campaign import physics_settings
     from .table import format_table
-    from .trial import run_trial
+    from .sim.trial import run_trial
     spec = load_gripper(args.gripper)
     models = build_models(spec)
     if args.variant:
@@ -191,11 +184,11 @@ def cmd_try(args):
         raise SpecError("--routine", [(args.routine, problem)])
     recorder = None
     if args.plot:
-        from .plots import TrialRecorder
+        from .views.plots import TrialRecorder
         recorder = TrialRecorder()
     row = run_trial(model, instance, routine, seed=args.seed, on_step=recorder, settings=settings)
     if args.plot:
-        from .plots import trial_plot
+        from .views.plots import trial_plot
         trial_plot(recorder, args.plot, title=f"{model.name} / {instance.name} / {routine.name} / seed {args.seed}")
     if args.json:
         print(json.dumps({k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in row.items()}))

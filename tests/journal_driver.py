@@ -18,8 +18,8 @@ from pathlib import Path
 
 import dummy_tasks
 
-from harness.executors import run_tasks
-from harness.journal import EVENTS_NAME, JOURNAL_NAME, EventLog, Journal
+from harness.campaigns.executors import run_tasks
+from harness.campaigns.journal import EVENTS_NAME, JOURNAL_NAME, EventLog, Journal
 
 
 def main(argv=None) -> int:

@@ -4,8 +4,8 @@ import math
 
 import numpy as np
 
-from harness.objects import generate, load_object_set
-from harness.world import World, add_object
+from harness.models.objects import generate, load_object_set
+from harness.sim.world import World, add_object
 
 
 def one_object(kind, **fields):
@@ -29,8 +29,8 @@ def roller_hand(flex=None, **roller):
     import tomllib
     from pathlib import Path
 
-    from harness.grippers import build_models
-    from harness.specs import load_gripper
+    from harness.models.grippers import build_models
+    from harness.models.specs import load_gripper
     path = Path(__file__).resolve().parents[1] / "models" / "grippers" / "duo-roller.toml"
     raw = tomllib.loads(path.read_text())
     raw.pop("sweep")
@@ -41,7 +41,7 @@ def roller_hand(flex=None, **roller):
 
 def ball_between_rollers(world, model, ball, below_palm=0.095, hand_height=0.3, fixed=False):
     """Hand pointing down at `hand_height`, ball centred `below_palm` under the palm, fingers closed on it."""
-    from harness.hand import Hand
+    from harness.sim.hand import Hand
     hand = Hand(world, model, (0, 0, hand_height))
     body = add_object(world, ball, (0, 0, hand_height - below_palm), fixed=fixed)
     for _ in range(120):

@@ -19,7 +19,8 @@ from scipy import stats as st
 from statsmodels.stats.multitest import multipletests
 from statsmodels.stats.proportion import proportion_confint
 
-from harness.analysis import commands, compare, compare_variants, fit_rasch, gate_exit_code, rank, summary
+from harness.analysis import compare, compare_variants, fit_rasch, gate_exit_code, rank, summary
+from harness.commands import analysis as commands
 from harness.analysis import synthetic_results
 from harness.analysis.compare import ALL
 from harness.errors import HarnessError
@@ -351,6 +352,6 @@ def test_cli_bad_input_gives_one_line_and_exit_2(planted_csv, capsys, argv, mess
 
 def test_registering_the_commands_does_not_import_pandas():
     # The CLI builds every subparser on start; --help must stay fast (DEVELOPERS: lazy imports).
-    code = ("import argparse, sys; from harness.analysis import commands; "
+    code = ("import argparse, sys; from harness.commands import analysis as commands; "
             "commands.register(argparse.ArgumentParser().add_subparsers()); print('pandas' in sys.modules)")
     assert subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout == "False\n"

@@ -30,7 +30,7 @@ import pytest
 
 from harness.cli import main
 from harness.errors import SpecError
-from harness.specs import load_any
+from harness.models.specs import load_any
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
 RACK_CLIP_OBJ = MODELS / "objects" / "meshes" / "rack-clip.obj"

@@ -6,7 +6,7 @@ import json
 
 import pytest
 
-from harness import bench
+from harness.commands import bench
 
 
 def test_bare_replay_reproduces_the_harness_trial_bit_for_bit():

@@ -17,8 +17,8 @@ import math
 import numpy as np
 import pytest
 
-from harness.hand import Hand
-from harness.world import PhysicsSettings, World, add_object
+from harness.sim.hand import Hand
+from harness.sim.world import PhysicsSettings, World, add_object
 from physics_scenes import one_object, roller_hand
 
 R_BALL = 0.010  # m

@@ -16,13 +16,13 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from harness.campaign import PerturbationRanges, expand, load_campaign
-from harness.campaign_commands import run_campaign
+from harness.campaigns.campaign import PerturbationRanges, expand, load_campaign
+from harness.commands.campaign import run_campaign
 from harness.cli import main
 from harness.errors import HarnessError, SpecError
-from harness.fields import Span
-from harness.journal import Journal, read_events
-from harness.runs import export, load_run, read_campaign
+from harness.models.fields import Span
+from harness.campaigns.journal import Journal, read_events
+from harness.campaigns.runs import export, load_run, read_campaign
 from harness.seeds import rng_for
 
 REPO = Path(__file__).resolve().parents[1]
@@ -307,7 +307,7 @@ def test_run_folder_records_campaign_and_load_run_types_columns(tiny, tmp_path):
 def test_timed_out_trials_are_complete_rows(tiny, tmp_path):
     text = TINY.replace("timeout_s = 60", "timeout_s = 0.001").replace(
         '"duo-roller[finger.roller.radius_mm=10]", ', "").replace("trials = 2", "trials = 1")
-    from harness.campaign_commands import ERRORED
+    from harness.commands.campaign import ERRORED
     folder = _run(write(tmp_path, text, "fast.toml"), tmp_path / "runs", workers=1, expect=ERRORED)
     df = load_run(folder)
     assert list(df["outcome"]) == ["timeout"]
@@ -326,14 +326,14 @@ def test_cli_plan_and_export(tiny, tmp_path, capsys):
 # --- stopping rules ----------------------------------------------------------------------------
 
 def _fake_tasks(cells, trials, places=("o",)):
-    from harness.campaign import TrialTask
+    from harness.campaigns.campaign import TrialTask
     return [TrialTask(f"{c}-{o}-{i}", {"variant": c, "object_set": "s", "object": o, "routine": "r", "i": i,
                                        "pair_key": f"{o}-{i}", "key": f"{c}-{o}-{i}", "seed": i})
             for c in cells for o in places for i in range(trials)]
 
 
 def test_widest_interval_first_and_a_narrow_cell_closes():
-    from harness.campaign_commands import Scheduler
+    from harness.commands.campaign import Scheduler
     sched = Scheduler(_fake_tasks("abc", 40), target_width=0.35, min_trials=5)
     handed = []
     for key, payload in sched:
@@ -353,7 +353,7 @@ def test_widest_interval_first_and_a_narrow_cell_closes():
 def test_without_a_target_trials_come_in_rounds_of_pairs_and_a_spent_budget_hands_out_none():
     import time
 
-    from harness.campaign_commands import Scheduler
+    from harness.commands.campaign import Scheduler
     tasks = _fake_tasks("ab", 3, places=("o", "p"))
     # rounds over pair keys: every place's first pair (both variants), then every place's second, ...
     assert [k for k, _ in Scheduler(tasks)] == [f"{v}-{o}-{i}" for i in range(3) for o in "op" for v in "ab"]
@@ -364,7 +364,7 @@ def test_without_a_target_trials_come_in_rounds_of_pairs_and_a_spent_budget_hand
 
 
 def test_a_resumed_run_completes_its_broken_pairs_first():
-    from harness.campaign_commands import Scheduler
+    from harness.commands.campaign import Scheduler
     tasks = _fake_tasks("abc", 3, places=("o", "p"))
     done = [{**t.payload, "trial_key": t.trial_key, "outcome": "held", "success": True}
             for t in tasks if t.trial_key in ("a-p-1", "b-p-1", "a-o-0", "b-o-0", "c-o-0")]
@@ -384,8 +384,8 @@ def test_a_budget_spent_mid_campaign_leaves_every_cell_within_one_round_and_only
     import time
 
     import dummy_tasks
-    from harness.campaign_commands import Scheduler
-    from harness.executors import run_tasks
+    from harness.commands.campaign import Scheduler
+    from harness.campaigns.executors import run_tasks
     tasks = [t for t in _fake_tasks("abc", 12, places="abcde") if not (t.payload["object"] == "e"
                                                                         and t.payload["variant"] == "c")]
     for t in tasks:

@@ -10,10 +10,11 @@ from pathlib import Path
 
 import pytest
 
-from harness.campaign_commands import run_campaign
+from harness.commands.campaign import run_campaign
 from harness.cli import main
-from harness.convergence import CROSSCHECK_NAME, crosscheck, numerics_flags
-from harness.report import build_report
+from harness.analysis.numerics import CROSSCHECK_NAME, numerics_flags
+from harness.commands.convergence import crosscheck
+from harness.views.report import build_report
 
 REPO = Path(__file__).resolve().parents[1]
 

@@ -9,9 +9,9 @@ import dummy_tasks
 import psutil
 import pytest
 
-from harness.executors import (ERROR, TIMEOUT, call_task, failure_row, iter_results, run_tasks,
+from harness.campaigns.executors import (ERROR, TIMEOUT, call_task, failure_row, iter_results, run_tasks,
                                start_local_cluster)
-from harness.journal import EVENTS_NAME, Journal, read_events
+from harness.campaigns.journal import EVENTS_NAME, Journal, read_events
 from journal_driver import driver_processes, start_driver, wait_for_count
 
 TIMEOUT_S = 3.0

@@ -43,13 +43,13 @@ from test_bad_specs import CASES, MESH, PART_URDF_OBJECT, append, hand_urdf, mak
 from test_campaign import BAD, DUO, REPO, SET, TINY, _run, _start, _wait_for_rows, write
 from test_trials import gripper, same_row
 
-import harness.campaign
-from harness.campaign import expand, load_campaign, run_payload
-from harness.campaign_commands import ERRORED
-from harness.journal import Journal
-from harness.routines import make_routine
-from harness.trial import run_trial
-from harness.world import PhysicsSettings
+import harness.campaigns.campaign
+from harness.campaigns.campaign import expand, load_campaign, run_payload
+from harness.commands.campaign import ERRORED
+from harness.campaigns.journal import Journal
+from harness.sim.routines import make_routine
+from harness.sim.trial import run_trial
+from harness.sim.world import PhysicsSettings
 
 TIMEOUT_S = 5.0  # per trial in the fault campaign; its trials take 0.1-0.5 s
 FAULT_AT = {1: "segfault", 2: "hang", 4: "raise"}  # plan_index -> dummy_tasks.FAULTS
@@ -82,7 +82,7 @@ def campaign_file(tmp_path, trials, timeout_s=60.0, name="c.toml"):
 
 def test_campaign_records_a_segfault_a_hang_and_a_raise_and_completes_the_rest(tmp_path, monkeypatch):
     campaign = campaign_file(tmp_path, trials=4, timeout_s=TIMEOUT_S)
-    monkeypatch.setattr(harness.campaign, "run_payload", faulty_run_payload)
+    monkeypatch.setattr(harness.campaigns.campaign, "run_payload", faulty_run_payload)
     started = time.monotonic()
     folder = _run(campaign, tmp_path / "runs", workers=2, expect=ERRORED)  # 3 of 8 trials failed to run
     assert time.monotonic() - started < 60

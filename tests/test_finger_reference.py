@@ -4,9 +4,9 @@ import numpy as np
 import pytest
 from physics_scenes import one_object, roller_hand
 
-from harness.contact import sample_contacts
-from harness.hand import Hand
-from harness.world import PhysicsSettings, World, add_object
+from harness.sim.contact import sample_contacts
+from harness.sim.hand import Hand
+from harness.sim.world import PhysicsSettings, World, add_object
 
 
 @pytest.mark.parametrize("torque", [1.0, 2.5])

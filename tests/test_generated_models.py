@@ -1,7 +1,7 @@
 """Generated models load in independent tools and say what their specs say.
 
 Every gripper variant (roller-finger, jaw and a `urdf` family spec written here) and every object
-instance of the demo sets is written with harness.build.materialise, parsed with yourdfpy (an
+instance of the demo sets is written with harness.models.build.materialise, parsed with yourdfpy (an
 independent URDF library) and loaded in pybullet. Expected values are read from the TOML files
 with tomllib, not through harness's own spec parser.
 """
@@ -26,10 +26,10 @@ import pybullet as p
 import pytest
 import yourdfpy
 
-from harness.build import materialise
-from harness.grippers import build_models
-from harness.objects import generate
-from harness.specs import load_any
+from harness.models.build import materialise
+from harness.models.grippers import build_models
+from harness.models.objects import generate
+from harness.models.specs import load_any
 
 ROOT = Path(__file__).resolve().parents[1]
 GRIPPER_DIR = ROOT / "models" / "grippers"
@@ -564,8 +564,8 @@ def test_generation_is_identical_in_another_process():
     code = textwrap.dedent(f"""
         import hashlib
         from pathlib import Path
-        from harness.objects import generate
-        from harness.specs import load_any
+        from harness.models.objects import generate
+        from harness.models.specs import load_any
         digests = []
         for f in {list(OBJECT_SET_FILES)!r}:
             h = hashlib.sha256()

@@ -7,10 +7,10 @@ import pytest
 from physics_scenes import one_object
 
 from harness.constants import GRAVITY
-from harness.grippers import build_models
-from harness.hand import Hand
-from harness.specs import load_gripper
-from harness.world import PhysicsSettings, World, add_object
+from harness.models.grippers import build_models
+from harness.sim.hand import Hand
+from harness.models.specs import load_gripper
+from harness.sim.world import PhysicsSettings, World, add_object
 
 JAW = Path(__file__).resolve().parents[1] / "models" / "grippers" / "bench-jaw.toml"
 

@@ -14,7 +14,7 @@ import numpy as np
 import psutil
 import pytest
 
-from harness.journal import EVENTS_NAME, JOURNAL_NAME, EventLog, Journal, read_events
+from harness.campaigns.journal import EVENTS_NAME, JOURNAL_NAME, EventLog, Journal, read_events
 from journal_driver import driver_processes, start_driver, wait_for_count
 
 N_TASKS = 60

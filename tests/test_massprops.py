@@ -1,4 +1,4 @@
-"""Reference checks of mass properties: harness.massprops against handbook formulas and trimesh,
+"""Reference checks of mass properties: harness.models.massprops against handbook formulas and trimesh,
 and every object instance of the demo sets against trimesh's mass properties of the same geometry.
 
 Every reference value names its source in a comment. trimesh is used as the independent
@@ -19,9 +19,9 @@ import pytest
 import trimesh
 from scipy.spatial.transform import Rotation
 
-from harness import massprops as M
-from harness.objects import generate
-from harness.specs import load_any
+from harness.models import massprops as M
+from harness.models.objects import generate
+from harness.models.specs import load_any
 
 ROOT = Path(__file__).resolve().parents[1]
 OBJECT_SET_FILES = (ROOT / "models" / "objects" / "lab-bench.toml", ROOT / "models" / "objects" / "stress.toml")
@@ -90,7 +90,7 @@ def capsule_handbook(r, h):
     """Unit-density capsule written the common handbook way: each hemisphere taken about its
     flat-face diameter (2/5 m r^2) and moved to the capsule centre, giving
     m_h (2 r^2 / 5 + h^2 / 4 + 3 h r / 8) (recalled from memory; a different route from
-    harness.massprops, which uses the hemisphere's own centroid and 83/320)."""
+    harness.models.massprops, which uses the hemisphere's own centroid and 83/320)."""
     m_c = math.pi * r * r * h
     m_h = 2.0 / 3.0 * math.pi * r ** 3
     across = m_c * (h * h / 12 + r * r / 4) + 2 * m_h * (2 * r * r / 5 + h * h / 4 + 3 * h * r / 8)
@@ -135,7 +135,7 @@ def test_capsule_of_zero_length_is_a_sphere():
 # --- closed triangle meshes ---------------------------------------------------------------------
 
 def check_polyhedron_vs_trimesh(mesh, what=""):
-    """harness.massprops.polyhedron against trimesh's exact mesh integral (density 1)."""
+    """harness.models.massprops.polyhedron against trimesh's exact mesh integral (density 1)."""
     assert mesh.is_watertight and mesh.is_winding_consistent and mesh.volume > 0
     got = M.polyhedron(mesh.vertices, mesh.faces)
     size = float(np.ptp(mesh.vertices, axis=0).max())
@@ -488,7 +488,7 @@ def test_gripper_link_inertia_is_its_collision_solid(spec_file):
     """Each link with one primitive collision shape is modelled as a uniform solid of that shape:
     COM at the shape's centre and inertia = the primitive's, turned with the shape's rpy (this
     catches a roller whose inertia axis does not follow its turned cylinder)."""
-    from harness.grippers import build_models
+    from harness.models.grippers import build_models
     checked = 0
     for model in build_models(load_any(spec_file)):
         for link in ET.fromstring(model.urdf).findall("link"):

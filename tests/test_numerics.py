@@ -11,14 +11,14 @@ import pandas as pd
 import pytest
 
 from harness.analysis.numerics import CELL_SHIFT, agreement, cell_agreement
-from harness.contact import sample_contacts
-from harness.grippers import build_models
-from harness.metrics import contact_load
-from harness.objects import generate
-from harness.routines import make_routine
-from harness.specs import load_any, load_gripper
-from harness.trial import Perturbation, run_trial
-from harness.world import PhysicsSettings, World
+from harness.sim.contact import sample_contacts
+from harness.models.grippers import build_models
+from harness.sim.metrics import contact_load
+from harness.models.objects import generate
+from harness.sim.routines import make_routine
+from harness.models.specs import load_any, load_gripper
+from harness.sim.trial import Perturbation, run_trial
+from harness.sim.world import PhysicsSettings, World
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
 

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from physics_scenes import on_incline, one_object
 
-from harness.contact import sample_contacts
-from harness.world import World, pair_friction
+from harness.sim.contact import sample_contacts
+from harness.sim.world import World, pair_friction
 
 
 def _slide(mu, tilt_deg, seconds=1.0):

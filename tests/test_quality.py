@@ -1,4 +1,4 @@
-"""Reference checks of grasp quality: harness.quality against linear programming and textbook cases.
+"""Reference checks of grasp quality: harness.sim.quality against linear programming and textbook cases.
 
 Every reference value names its source in a comment. The independent reference is linear
 programming (scipy.optimize.linprog, HiGHS), which never builds a hull: the distance from the
@@ -17,7 +17,7 @@ from scipy.optimize import linprog
 from scipy.spatial import ConvexHull
 from scipy.spatial.transform import Rotation
 
-from harness import quality as Q
+from harness.sim import quality as Q
 
 ORIGIN = np.zeros(3)
 LP_TOL = 1e-6  # HiGHS' default primal feasibility tolerance is 1e-7; its optimal t is exact to ~1e-8

@@ -10,8 +10,8 @@ from pathlib import Path
 import pytest
 
 from harness.analysis import compare, gate_exit_code
-from harness.campaign_commands import run_campaign
-from harness.runs import load_run
+from harness.commands.campaign import run_campaign
+from harness.campaigns.runs import load_run
 
 CAMPAIGNS = Path(__file__).resolve().parents[1] / "campaigns"
 
@@ -55,8 +55,8 @@ def test_a_run_compared_with_itself_shows_no_change(runs):
 
 
 def test_the_shipped_pair_is_planned_for_a_30_point_drop_per_cell():
-    from harness.campaign import expand, load_campaign
-    from harness.campaign_commands import power_lines
+    from harness.campaigns.campaign import expand, load_campaign
+    from harness.commands.campaign import power_lines
     for side in ("base", "candidate"):
         campaign = load_campaign(CAMPAIGNS / f"regression-{side}.toml")
         text = "\n".join(power_lines(campaign, expand(campaign)))
@@ -66,7 +66,7 @@ def test_the_shipped_pair_is_planned_for_a_30_point_drop_per_cell():
 
 
 def test_six_trials_per_cell_can_never_flag_a_cell_and_compare_says_so(runs):
-    from harness.analysis.commands import compare_text
+    from harness.commands.analysis import compare_text
     text, code = compare_text(runs["base"], runs["candidate"])
     assert "28 of 28 cells have fewer and can never be flagged" in text
     assert code == 1 and "overall: worse: success" in text and "after Holm" in text

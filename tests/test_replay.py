@@ -15,13 +15,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from harness.campaign_commands import run_campaign
+from harness.commands.campaign import run_campaign
 from harness.errors import HarnessError
-from harness.journal import Journal
-from harness.plots import TrialRecorder, trial_plot
-from harness.replay import open_trial, replay, row_differences, simulate
-from harness.report_commands import cmd_replay, register
-from harness.runs import load_run
+from harness.campaigns.journal import Journal
+from harness.views.plots import TrialRecorder, trial_plot
+from harness.views.replay import open_trial, replay, row_differences, simulate
+from harness.commands.report import cmd_replay, register
+from harness.campaigns.runs import load_run
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -105,7 +105,7 @@ def test_rendered_frames_show_hand_and_object_change_over_time_and_leave_physics
 
 
 def test_segmentation_sees_hand_and_object_in_a_frame(run):
-    from harness.replay import render, survey
+    from harness.views.replay import render, survey
     df = load_run(run)
     source = open_trial(run, df["trial_key"].iloc[0])
     first, surveyed = survey(source)

@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 
 from harness.cli import SAFETY
-from harness.report import SECTIONS, build_report, worst_trials
-from harness.report_commands import cmd_report, register
-from harness.runs import load_run
+from harness.views.report import SECTIONS, build_report, worst_trials
+from harness.commands.report import cmd_report, register
+from harness.campaigns.runs import load_run
 from test_replay import tiny_run
 
 
@@ -104,7 +104,7 @@ def test_worst_trials_carry_a_thumbnail_status_and_their_replay_command(made):
 def test_the_printed_replay_command_runs_and_matches(made, tmp_path, monkeypatch, capsys):
     import re
     import shlex
-    from harness.report_commands import cmd_replay
+    from harness.commands.report import cmd_replay
     _, _, page = made
     command = next(t for t in page.text if t.startswith("grasp-harness replay "))
     parser = argparse.ArgumentParser()

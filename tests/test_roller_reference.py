@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from physics_scenes import ball_between_rollers, one_object, roller_hand
 
-from harness.contact import sample_contacts
-from harness.world import PhysicsSettings, World
+from harness.sim.contact import sample_contacts
+from harness.sim.world import PhysicsSettings, World
 
 R_ROLLER = 0.012  # m, the duo-roller demo's middle sweep value
 

@@ -10,9 +10,9 @@ from pathlib import Path
 import pytest
 
 from harness.analysis.numerics import ALPHA, OVERALL_SHIFT, agreement
-from harness.campaign_commands import run_campaign
-from harness.convergence import CROSSCHECK_FOLDER
-from harness.runs import load_run
+from harness.commands.campaign import run_campaign
+from harness.commands.convergence import CROSSCHECK_FOLDER
+from harness.campaigns.runs import load_run
 
 REPO = Path(__file__).resolve().parents[1]
 

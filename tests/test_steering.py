@@ -1,4 +1,4 @@
-"""Reference checks of harness.steering: roller speeds and pivot angles for a commanded object twist.
+"""Reference checks of harness.sim.steering: roller speeds and pivot angles for a commanded object twist.
 
 Every reference value names its source in a comment. The kinematic facts used are textbook ones:
 the velocity of a rigid body's material point x is v + w x (x - o), and a roller of radius r
@@ -18,7 +18,7 @@ import pytest
 from scipy.linalg import null_space
 from scipy.spatial.transform import Rotation
 
-from harness.steering import (RollerContact, contact_jacobian, grasp_matrix, rolling_direction,
+from harness.sim.steering import (RollerContact, contact_jacobian, grasp_matrix, rolling_direction,
                               steer)
 
 TIGHT = 1e-9  # m/s (or relative): both sides are exact linear algebra in float64

@@ -9,11 +9,11 @@ from pathlib import Path
 import pytest
 
 from harness.errors import SpecError
-from harness.grippers import build_models
-from harness.objects import generate
-from harness.routines import make_routine
-from harness.specs import load_any, load_gripper
-from harness.trial import run_trial
+from harness.models.grippers import build_models
+from harness.models.objects import generate
+from harness.sim.routines import make_routine
+from harness.models.specs import load_any, load_gripper
+from harness.sim.trial import run_trial
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
 

@@ -9,16 +9,16 @@ import numpy as np
 import pytest
 from physics_scenes import ball_between_rollers, one_object, roller_hand
 
-from harness.contact import sample_contacts
-from harness.grippers import build_models
-from harness.metrics import blowup
-from harness.objects import generate
-from harness.phases import STEER_RTOL, roller_contacts
-from harness.routines import _GRASPED, ROUTINES, make_routine
-from harness.specs import load_any, load_gripper
-from harness.steering import steer
-from harness.trial import Perturbation, TrialContext, run_trial
-from harness.world import World
+from harness.sim.contact import sample_contacts
+from harness.models.grippers import build_models
+from harness.sim.metrics import blowup
+from harness.models.objects import generate
+from harness.sim.phases import STEER_RTOL, roller_contacts
+from harness.sim.routines import _GRASPED, ROUTINES, make_routine
+from harness.models.specs import load_any, load_gripper
+from harness.sim.steering import steer
+from harness.sim.trial import Perturbation, TrialContext, run_trial
+from harness.sim.world import World
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
 

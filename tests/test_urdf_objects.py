@@ -21,15 +21,15 @@ import numpy as np
 import pytest
 import trimesh
 
-import harness.campaign
-from harness.campaign import run_payload
-from harness.campaign_commands import ERROR_SHARE, ERRORED, run_campaign
+import harness.campaigns.campaign
+from harness.campaigns.campaign import run_payload
+from harness.commands.campaign import ERROR_SHARE, ERRORED, run_campaign
 from harness.cli import main
 from harness.errors import SpecError
-from harness.objects import generate
-from harness.objects.urdf_files import _rpy, _rpy_matrix
-from harness.runs import load_run, read_campaign
-from harness.specs import load_any
+from harness.models.objects import generate
+from harness.models.objects.urdf_files import _rpy, _rpy_matrix
+from harness.campaigns.runs import load_run, read_campaign
+from harness.models.specs import load_any
 
 REPO = Path(__file__).resolve().parents[1]
 CORPUS = REPO / "tests" / "corpus"
@@ -367,7 +367,7 @@ def corpus_run(tmp_path_factory):
 
 
 def test_a_draw_in_campaign_over_the_corpus_has_no_error_and_the_report_builds(corpus_run, tmp_path):
-    from harness.report import build_report
+    from harness.views.report import build_report
     code, folder, campaign = corpus_run
     df = load_run(folder)
     assert code == 0
@@ -387,7 +387,7 @@ def test_a_draw_in_campaign_over_the_corpus_has_no_error_and_the_report_builds(c
 
 
 def test_replay_reproduces_every_corpus_trial_bit_for_bit(corpus_run):
-    from harness.replay import replay
+    from harness.views.replay import replay
     _, folder, campaign = corpus_run
     for key in load_run(folder)["trial_key"]:
         result = replay(folder, key, campaign_file=campaign)
@@ -430,11 +430,11 @@ def planted_run_payload(payload):
 
 def test_a_run_with_failing_trials_exits_errored_and_summary_and_report_list_the_reasons_first(
         tmp_path, monkeypatch, capsys):
-    from harness.analysis.commands import summary_text
-    from harness.report import build_report
+    from harness.commands.analysis import summary_text
+    from harness.views.report import build_report
     campaign = tmp_path / "corpus.toml"
     campaign.write_text(CAMPAIGN)
-    monkeypatch.setattr(harness.campaign, "run_payload", planted_run_payload)
+    monkeypatch.setattr(harness.campaigns.campaign, "run_payload", planted_run_payload)
     said = []
     code = run_campaign(campaign, out=tmp_path / "runs", workers=2, progress=False,
                         echo=lambda *a, **k: said.append(" ".join(map(str, a))))
@@ -461,11 +461,11 @@ def always_failing(payload):
 
 
 def test_report_and_summary_survive_a_run_where_every_trial_errored(tmp_path, monkeypatch, capsys):
-    from harness.report import build_report
+    from harness.views.report import build_report
     campaign = tmp_path / "corpus.toml"
     campaign.write_text(CAMPAIGN.replace('objects = ["tests/corpus/parts.toml", "tests/corpus/oversize.toml"]',
                                          'objects = ["tests/corpus/oversize.toml"]'))
-    monkeypatch.setattr(harness.campaign, "run_payload", always_failing)
+    monkeypatch.setattr(harness.campaigns.campaign, "run_payload", always_failing)
     code = run_campaign(campaign, out=tmp_path / "runs", workers=1, progress=False, echo=lambda *a, **k: None)
     assert code == ERRORED
     (folder,) = (tmp_path / "runs").iterdir()

@@ -20,7 +20,9 @@ over at least MIN_PAIRS such trials.
 
 from __future__ import annotations
 
+import json
 import math
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -29,7 +31,9 @@ from ..errors import HarnessError
 from .stats import holm, mcnemar_exact_p, wilson_interval
 from .summary import CELL, NOT_VALID
 
-__all__ = ["TOLERANCES", "agreement", "cell_agreement", "settled"]
+CROSSCHECK_NAME = "crosscheck.json"  # a run folder's crosscheck result and its flagged cells
+
+__all__ = ["TOLERANCES", "agreement", "cell_agreement", "settled", "numerics_flags", "CROSSCHECK_NAME"]
 
 ALPHA = 0.05
 OVERALL_SHIFT = 0.02  # paired success difference, share of trials
@@ -159,3 +163,12 @@ def settled(a):
     if math.isfinite(hold) and hold >= HOLD_SLIP_MM:
         why.append(f"static hold slip {hold:.3g} mm (>= {HOLD_SLIP_MM})")
     return why
+
+
+def numerics_flags(run):
+    """{(variant, object_set, object, routine): why} of a run's crosscheck (empty without one)."""
+    path = Path(run) / CROSSCHECK_NAME
+    if not path.is_file():
+        return {}
+    data = json.loads(path.read_text(encoding="utf-8"))
+    return {(f["variant"], f["object_set"], f["object"], f["routine"]): f["why"] for f in data.get("flagged", [])}

@@ -67,7 +67,7 @@ def summary(df, confidence=0.95):
     out = out.join(counts.reindex(columns=list(OUTCOMES), fill_value=0))
     # slip of a missed trial comes from glancing touches and would pull a cell's median toward
     # whatever the approach brushed; slip statistics are of held trials (drift is NaN unless the
-    # object stayed in the hand, see routines.describe)
+    # object stayed in the hand, see sim.routines.Routine.describe)
     out = out.join(_metric_quantiles(df[valid].assign(slip_mm=df["slip_mm"].where(df["outcome"] == "held"))))
     return out.reset_index()
 

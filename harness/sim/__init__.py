@@ -1,0 +1,1 @@
+"""Stage 2: one trial in the engine: world, contacts, hand, phases, routines, metrics."""

@@ -1,0 +1,1 @@
+"""Stage 5: what a person looks at: the HTML report, replays, per-trial plots."""
