@@ -5,6 +5,7 @@ import math
 import numpy as np
 
 from harness.models.objects import generate, load_object_set
+from harness.sim.transforms import quat_from_euler
 from harness.sim.world import World, add_object
 
 
@@ -19,7 +20,7 @@ def on_incline(world: World, instance, tilt, mu_table, lift=0.0):
     table tilted by `tilt` rad about y; returns (body, downhill unit vector)."""
     world.add_table(size=(3.0, 1.0, 0.05), tilt=tilt, friction=mu_table)
     normal = np.array([math.sin(tilt), 0.0, math.cos(tilt)])
-    orn = world.p.getQuaternionFromEuler((0, tilt, 0))
+    orn = quat_from_euler((0, tilt, 0))
     body = add_object(world, instance, (normal * lift).tolist(), orn)
     return body, np.array([math.cos(tilt), 0.0, -math.sin(tilt)])
 

@@ -18,7 +18,8 @@ import numpy as np
 import pytest
 
 from harness.sim.hand import Hand
-from harness.sim.world import PhysicsSettings, World, add_object
+from harness.sim.engines import open_world
+from harness.sim.world import PhysicsSettings, add_object
 from physics_scenes import one_object, roller_hand
 
 R_BALL = 0.010  # m
@@ -32,7 +33,7 @@ def _bite(alpha, mu, seconds=1.0, speed=2.0):
     model = roller_hand(friction=1.0)
     r = model.roller_radius
     ball = one_object("sphere", radius_mm=R_BALL * 1e3, mass_g=10, friction=mu * mu)  # pair mu = sqrt(1 x mu^2)
-    with World(PhysicsSettings(gravity=0.0)) as world:
+    with open_world(PhysicsSettings(gravity=0.0)) as world:
         hand = Hand(world, model, (0, 0, 0.3))
         # flex angle whose roller centres sit (r + R) cos(alpha) - SQUEEZE from the hand axis
         lo, hi = hand.limits[hand.close_j[0]][:2]

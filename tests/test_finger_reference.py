@@ -6,7 +6,9 @@ from physics_scenes import one_object, roller_hand
 
 from harness.sim.contact import sample_contacts
 from harness.sim.hand import Hand
-from harness.sim.world import PhysicsSettings, World, add_object
+from harness.sim.transforms import rotation
+from harness.sim.engines import open_world
+from harness.sim.world import PhysicsSettings, add_object
 
 
 @pytest.mark.parametrize("torque", [1.0, 2.5])
@@ -15,7 +17,7 @@ def test_finger_presses_with_torque_over_lever(torque):
     # distance L gives F = tau / L (any statics text, e.g. Meriam & Kraige, Statics, ch. 3).
     # Gravity off, so only the motor torque loads the contact; the block is fixed in space.
     model = roller_hand(flex={"torque_nm": torque})
-    with World(PhysicsSettings(gravity=0.0)) as w:
+    with open_world(PhysicsSettings(gravity=0.0)) as w:
         hand = Hand(w, model, (0, 0, 0.3))
         box = one_object("box", size_x_mm=40, size_y_mm=40, size_z_mm=40, mass_g=50, friction=1.0)
         block = add_object(w, box, (0, 0, 0.3 - 0.092), fixed=True)
@@ -23,10 +25,9 @@ def test_finger_presses_with_torque_over_lever(torque):
             hand.close()
             w.step()
         joint = hand.close_j[0]
-        frame = w.p.getLinkState(hand.body, joint, computeForwardKinematics=1, physicsClientId=w.cid)
-        origin = np.array(frame[4])  # the joint sits at the origin of its child link's URDF frame
-        rot = np.array(w.p.getMatrixFromQuaternion(frame[5])).reshape(3, 3)
-        axis = rot @ np.array(w.p.getJointInfo(hand.body, joint, physicsClientId=w.cid)[13])
+        position, orientation = w.link_frame(hand.body, joint)
+        origin = np.array(position)  # the joint sits at the origin of its child link's URDF frame
+        axis = rotation(orientation) @ np.array(w.joints(hand.body)[joint].axis)
         s = sample_contacts(w, block, hand.body)
         finger0 = [hand.link_of[n] for n in ("finger0_link", "finger0_carrier", "finger0_roller", "finger0_pad")]
         on = np.isin(s.links, finger0)

@@ -10,7 +10,8 @@ from harness.constants import GRAVITY
 from harness.models.grippers import build_models
 from harness.sim.hand import Hand
 from harness.models.specs import load_gripper
-from harness.sim.world import PhysicsSettings, World, add_object
+from harness.sim.engines import open_world
+from harness.sim.world import PhysicsSettings, add_object
 
 JAW = Path(__file__).resolve().parents[1] / "models" / "grippers" / "bench-jaw.toml"
 
@@ -21,7 +22,7 @@ def _drop_after_one_second(force, mu, mass):
     raw["jaw"]["force_n"] = force
     raw["pad"]["friction"] = mu  # pad and box both mu: the pair's value is mu (see world.pair_friction)
     model = build_models(load_gripper(JAW, raw))[0]
-    with World(PhysicsSettings(gravity=0.0)) as w:
+    with open_world(PhysicsSettings(gravity=0.0)) as w:
         hand = Hand(w, model, (0, 0, 0.3))
         box = one_object("box", size_x_mm=40, size_y_mm=30, size_z_mm=30, mass_g=mass * 1000, friction=mu)
         body = add_object(w, box, (0, 0, 0.3 - 0.055))
@@ -29,7 +30,7 @@ def _drop_after_one_second(force, mu, mass):
             hand.close()
             w.step()
         start = w.pose(body)[0][2]
-        w.p.setGravity(0, 0, -GRAVITY, physicsClientId=w.cid)
+        w.set_gravity((0, 0, -GRAVITY))
         for _ in range(240):
             hand.close()
             w.step()

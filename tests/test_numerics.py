@@ -18,7 +18,8 @@ from harness.models.objects import generate
 from harness.sim.routines import make_routine
 from harness.models.specs import load_any, load_gripper
 from harness.sim.trial import Perturbation, run_trial
-from harness.sim.world import PhysicsSettings, World
+from harness.sim.bullet_world import BulletWorld
+from harness.sim.world import PhysicsSettings
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
 
@@ -38,7 +39,7 @@ def object_set(name):
     return {i.name: i for i in generate(load_any(MODELS / "objects" / f"{name}.toml"))}
 
 
-class Observed(World):
+class Observed(BulletWorld):
     """A world that calls `each(world)` after every physics step once a trial context is known."""
 
     def __init__(self, settings=PhysicsSettings()):

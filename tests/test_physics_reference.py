@@ -7,13 +7,14 @@ import pytest
 from physics_scenes import on_incline, one_object
 
 from harness.sim.contact import sample_contacts
-from harness.sim.world import World, pair_friction
+from harness.sim.engines import open_world
+from harness.sim.world import pair_friction
 
 
 def _slide(mu, tilt_deg, seconds=1.0):
     """Distance (m) a block slides along an incline in `seconds`, and its mean contact slip speed (m/s)."""
     block = one_object("box", size_x_mm=40, size_y_mm=40, size_z_mm=20, mass_g=200, friction=mu)
-    with World() as w:
+    with open_world() as w:
         body, downhill = on_incline(w, block, math.radians(tilt_deg), mu, lift=0.0101)
         w.step(round(0.1 / w.settings.time_step))  # settle the 0.1 mm drop
         start = w.pose(body)[0]
@@ -53,7 +54,7 @@ def test_incline_slip_metric_zero_below_and_equals_sliding_speed_above():
 def _roll(mu, tilt_deg):
     """Acceleration (m/s^2) of a 20 mm ball along an incline, fitted over 1 s, and its peak slip speed."""
     ball = one_object("sphere", radius_mm=20, mass_g=100, friction=mu)
-    with World() as w:
+    with open_world() as w:
         body, downhill = on_incline(w, ball, math.radians(tilt_deg), mu, lift=0.02)
         w.step(round(0.1 / w.settings.time_step))  # settle the drop (0.1 s)
         times, travel, slips = [], [], []

@@ -5,7 +5,8 @@ import pytest
 from physics_scenes import ball_between_rollers, one_object, roller_hand
 
 from harness.sim.contact import sample_contacts
-from harness.sim.world import PhysicsSettings, World
+from harness.sim.engines import open_world
+from harness.sim.world import PhysicsSettings
 
 R_ROLLER = 0.012  # m, the duo-roller demo's middle sweep value
 
@@ -17,7 +18,7 @@ def test_two_counter_rotating_rollers_draw_a_ball_in_at_w_r(speed):
     # the contact normals are square to the motion (rolling kinematics, e.g. Murray, Li and Sastry
     # 1994, ch. 5). Gravity off so the motor torque is not loaded by the ball's weight; strong roller
     # motors so they hold their commanded speed.
-    with World(PhysicsSettings(gravity=0.0)) as w:
+    with open_world(PhysicsSettings(gravity=0.0)) as w:
         hand, ball = ball_between_rollers(w, roller_hand(torque_nm=3.0), one_object("sphere", radius_mm=20, mass_g=30, friction=1.0))
         rollers = [hand.link_of[f"finger{i}_roller"] for i in range(2)]
         hand.set_rollers(speed)

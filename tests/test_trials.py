@@ -18,7 +18,7 @@ from harness.sim.routines import _GRASPED, ROUTINES, make_routine
 from harness.models.specs import load_any, load_gripper
 from harness.sim.steering import steer
 from harness.sim.trial import Perturbation, TrialContext, run_trial
-from harness.sim.world import World
+from harness.sim.engines import open_world
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
 
@@ -54,7 +54,7 @@ def test_a_trial_depends_only_on_its_inputs_and_seed():
                         actuator_lag=0.02, speed_noise=0.1)
     routine = make_routine("draw-in-grasp")
     first = run_trial(gripper("duo-roller"), instance("vial-1"), routine, pert, seed=7)
-    with World() as world:
+    with open_world() as world:
         run_trial(gripper("tri-roller"), instance("ball"), routine, seed=1, world=world)
         again = run_trial(gripper("duo-roller"), instance("vial-1"), routine, pert, seed=7, world=world)
     same_row(first, again)
@@ -122,7 +122,7 @@ def test_steering_residual_on_measured_contacts_of_a_held_ball():
     # keeps its contacts (normals through the centre) and is producible; a sideways translation
     # pushes into a roller, which no roller setting can do (non-holonomic / unilateral part).
     routine = make_routine("roll")
-    with World() as world:
+    with open_world() as world:
         ctx = TrialContext(world, gripper("tri-roller"), instance("ball"), Perturbation(), 0)
         for phase, _ in _GRASPED:
             assert phase(ctx, routine.params, ctx.begin(phase.__name__))
@@ -141,7 +141,7 @@ def test_slip_equals_the_true_surface_speed_when_friction_cannot_carry_the_load(
     # roller's surface slides past the ball at the roller's own speed times its radius (no-slip
     # kinematics, w r, from the joint's measured speed, independent of the link velocities the
     # slip metric uses). Measured: within 0.5 %; the issue asks for 10 %.
-    with World() as world:
+    with open_world() as world:
         model = roller_hand(friction=mu)
         hand, ball = ball_between_rollers(world, model, one_object("sphere", radius_mm=20, mass_g=30, friction=mu),
                                           fixed=True)

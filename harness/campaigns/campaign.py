@@ -419,13 +419,13 @@ def run_payload(payload: dict) -> dict:
     """Run one planned trial (in a worker process) and return its journal row."""
     from ..sim.routines import make_routine
     from ..sim.trial import Perturbation, run_trial
-    from ..sim.world import World
+    from ..sim.engines import open_world
     model = _variant(payload["gripper_file"], payload["variant"])
     inst = _instance(payload["object_set_file"], payload["object"])
     routine = _cached(("routine", payload["routine"], json.dumps(payload["routine_table"], sort_keys=True)),
                       lambda: make_routine(payload["routine"], payload["routine_table"]))
     settings = payload_settings(payload)
-    world = _cached(("world", settings), lambda: World(settings))
+    world = _cached(("world", settings), lambda: open_world(settings))
     row = run_trial(model, inst, routine, Perturbation(**payload["perturbation"]), seed=payload["seed"],
                     settings=settings, world=world)
     return {**failure_inputs(payload), **row}

@@ -149,13 +149,13 @@ def _setup_calls(calls, settle_steps):
 def measure_overhead(trials, repeats=REPEATS, profile=None):
     """Harness trials vs the bare replay of their engine calls (see the module doc)."""
     from ..sim.trial import Perturbation, run_trial
-    from ..sim.world import World
+    from ..sim.bullet_world import BulletWorld
     model, instances, routine = _scenario()
     harness_s = bare_s = setup_s = 0.0
     steps = ctrl_steps = 0
     exact = True
     outcomes = {}
-    with World() as world:
+    with BulletWorld() as world:
         module = world.p
         for i in range(trials):
             inst = instances[i % len(instances)]

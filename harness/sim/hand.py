@@ -14,6 +14,7 @@ import numpy as np
 
 from ..models.build import materialise
 from ..models.grippers import GripperModel
+from .transforms import invert, multiply, rotation
 from .world import World, model_cache
 
 __all__ = ["Hand", "DOWN", "RollerJoints"]
@@ -45,21 +46,19 @@ class RollerJoints:
 
 class Hand:
     def __init__(self, world: World, model: GripperModel, position, orientation=DOWN, wrist_force=WRIST_FORCE):
-        p, cid = world.p, world.cid
         self.world, self.model = world, model
         path = materialise(model.name, model.urdf, model.files, model_cache())
         self.body = world.load(path, position, orientation)
-        names = {p.getJointInfo(self.body, j, physicsClientId=cid)[1].decode(): j
-                 for j in range(p.getNumJoints(self.body, physicsClientId=cid))}
-        self.link_of = {p.getJointInfo(self.body, j, physicsClientId=cid)[12].decode(): j for j in names.values()}
-        self.link_of[p.getBodyInfo(self.body, physicsClientId=cid)[0].decode()] = -1
+        info = world.joints(self.body)
+        names = {i.name: j for j, i in enumerate(info)}
+        self.link_of = {i.link_name: j for j, i in enumerate(info)}
+        self.link_of[world.base_name(self.body)] = -1
         self.close_j = [names[n] for n in model.close_joints]
         self.pivot_j = [names[n] for n in model.pivot_joints]
         self.roll_j = [names[n] for n in model.roll_joints]
-        info = [p.getJointInfo(self.body, j, physicsClientId=cid) for j in range(len(names))]
-        self.limits = {j: (i[8], i[9], i[10], i[11]) for j, i in enumerate(info)}  # lower, upper, effort, speed
-        self._axis = {j: np.array(i[13]) for j, i in enumerate(info)}  # in the child link's frame
-        self._parent = {j: i[16] for j, i in enumerate(info)}
+        self.limits = {j: (i.lower, i.upper, i.effort, i.speed) for j, i in enumerate(info)}
+        self._axis = {j: np.array(i.axis) for j, i in enumerate(info)}  # in the child link's frame
+        self._parent = {j: i.parent for j, i in enumerate(info)}
         self._lead = float(np.mean([self.limits[j][3] for j in self.close_j])) * CLOSE_LEAD_TIME
         self.rollers = [RollerJoints(roll, self._pivot_of(roll), model.roller_radius) for roll in self.roll_j]
         for link_name, surface in model.surfaces.items():
@@ -67,11 +66,8 @@ class Hand:
                 world.set_surface(self.body, self.link_of[link_name], surface.friction, 0.0,
                                   surface.stiffness, surface.damping)
         # the wrist constraint acts at the URDF frame of the palm, not at its centre of mass
-        dyn = p.getDynamicsInfo(self.body, -1, physicsClientId=cid)
-        self._frame_in_com = p.invertTransform(dyn[3], dyn[4])  # URDF frame seen from the palm's COM frame
-        self.wrist = p.createConstraint(self.body, -1, -1, -1, p.JOINT_FIXED, (0, 0, 0), self._frame_in_com[0],
-                                        (0, 0, 0), childFrameOrientation=(0, 0, 0, 1),
-                                        parentFrameOrientation=self._frame_in_com[1], physicsClientId=cid)
+        self._frame_in_com = invert(*world.com_frame(self.body))  # URDF frame seen from the palm's COM frame
+        self.wrist = world.add_wrist(self.body, self._frame_in_com)
         self.wrist_force = wrist_force
         self.move_wrist(position, orientation)
         # every driven joint starts held: pivots at 0 (or the nearest limit), rollers at rest
@@ -82,30 +78,26 @@ class Hand:
 
     def move_wrist(self, position, orientation=DOWN):
         self.wrist_target = (np.asarray(position, dtype=float), tuple(orientation))
-        self.world.p.changeConstraint(self.wrist, jointChildPivot=list(position), jointChildFrameOrientation=orientation,
-                                      maxForce=self.wrist_force, physicsClientId=self.world.cid)
+        self.world.move_wrist(self.wrist, position, orientation, self.wrist_force)
 
     def teleport(self, position, orientation=DOWN):
         """Put the hand's frame at a pose at once, at rest (before the first step of a scene)."""
-        p, cid = self.world.p, self.world.cid
-        pos, orn = p.multiplyTransforms(position, orientation, *p.invertTransform(*self._frame_in_com))
-        p.resetBasePositionAndOrientation(self.body, pos, orn, physicsClientId=cid)
+        pos, orn = multiply(position, orientation, *invert(*self._frame_in_com))
+        self.world.reset_pose(self.body, pos, orn)
         self.move_wrist(position, orientation)
 
     def _position(self, joints, targets, torque_scale=1.0, gain=None):
-        p = self.world.p
         gain = self.world.settings.time_step / SERVO_TIME if gain is None else gain
         for j, target in zip(joints, targets):
             lower, upper, effort, speed = self.limits[j]
-            p.setJointMotorControl2(self.body, j, p.POSITION_CONTROL, targetPosition=min(max(float(target), lower), upper),
-                                    force=effort * torque_scale, maxVelocity=speed, positionGain=gain,
-                                    physicsClientId=self.world.cid)
+            self.world.drive_position(self.body, j, min(max(float(target), lower), upper), effort * torque_scale,
+                                      speed, gain)
 
     def close(self, fraction=1.0, torque_scale=1.0):
         """Drive closing joints toward `fraction` of their range (1: fully closed, 0: fully open),
         synchronised, with their torque limit (times `torque_scale`). Call again each control step.
         Driving toward 0 from a closed pose spreads the fingers with full torque (inside grasps)."""
-        states = self.world.p.getJointStates(self.body, self.close_j, physicsClientId=self.world.cid)
+        states = self.world.joint_states(self.body, self.close_j)
         mean = sum(s[0] for s in states) / len(states)
         targets = []
         for j in self.close_j:  # each target leads the mean toward the joint's goal, never past it
@@ -134,33 +126,28 @@ class Hand:
         """Teleport closing joints to `fraction` of their range (before the first step only)."""
         for j in self.close_j:
             lo, hi, *_ = self.limits[j]
-            self.world.p.resetJointState(self.body, j, lo + fraction * (hi - lo), physicsClientId=self.world.cid)
+            self.world.reset_joint(self.body, j, lo + fraction * (hi - lo))
 
     def set_pivots(self, angles):
         self._position(self.pivot_j, np.broadcast_to(angles, (len(self.pivot_j),)))
 
     def set_rollers(self, speeds, torque_scale=1.0):
         """Roller speeds (rad/s, positive draws in), clipped to each motor's speed limit."""
-        p = self.world.p
         for j, speed in zip(self.roll_j, np.broadcast_to(speeds, (len(self.roll_j),))):
             _, _, effort, limit = self.limits[j]
-            p.setJointMotorControl2(self.body, j, p.VELOCITY_CONTROL, targetVelocity=float(np.clip(speed, -limit, limit)),
-                                    force=effort * torque_scale, physicsClientId=self.world.cid)
+            self.world.drive_velocity(self.body, j, float(np.clip(speed, -limit, limit)), effort * torque_scale)
 
     # --- state --------------------------------------------------------------------------------
 
     def joint_positions(self, joints):
-        states = self.world.p.getJointStates(self.body, joints, physicsClientId=self.world.cid)
-        return np.array([s[0] for s in states])
+        return np.array([s[0] for s in self.world.joint_states(self.body, joints)])
 
     def joint_speeds(self, joints):
-        states = self.world.p.getJointStates(self.body, joints, physicsClientId=self.world.cid)
-        return np.array([s[1] for s in states])
+        return np.array([s[1] for s in self.world.joint_states(self.body, joints)])
 
     def joint_axis(self, joint):
         """A joint's unit axis (3,) in the world frame (the axis is stated in its child link's frame)."""
-        orn = self.world.p.getLinkState(self.body, joint, physicsClientId=self.world.cid)[5]
-        return np.array(self.world.p.getMatrixFromQuaternion(orn)).reshape(3, 3) @ self._axis[joint]
+        return rotation(self.world.link_orientation(self.body, joint)) @ self._axis[joint]
 
     def tip_links(self):
         """Per closing joint, the link of its chain farthest from the palm (roller, pad, jaw)."""
@@ -192,13 +179,12 @@ class Hand:
 
     def link_box(self, link, frame=None):
         """The 8 corners (8, 3) of a link's world-aligned collision box, in the hand frame."""
-        lo, hi = self.world.p.getAABB(self.body, link, physicsClientId=self.world.cid)
+        lo, hi = self.world.aabb(self.body, link)
         corners = [[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])]
         return self.to_hand(corners, frame)
 
     def frame(self):
         """Pose of the palm's URDF frame (the hand frame): position (3,), rotation matrix (3, 3)."""
-        p, cid = self.world.p, self.world.cid
-        pos, orn = p.getBasePositionAndOrientation(self.body, physicsClientId=cid)
-        pos, orn = p.multiplyTransforms(pos, orn, *self._frame_in_com)
-        return np.array(pos), np.array(p.getMatrixFromQuaternion(orn)).reshape(3, 3)
+        pos, orn = self.world.raw_state(self.body, -1)[:2]
+        pos, orn = multiply(pos, orn, *self._frame_in_com)
+        return np.array(pos), rotation(orn)

@@ -53,7 +53,6 @@ def section_widths(ctx, heights):
     """Width (m) of the object's collision geometry along the hand's x axis (the line the first
     finger closes along) at each world height: rays cast inward from both sides through the rest
     position. 0 where the rays miss it."""
-    p, cid = ctx.world.p, ctx.world.cid
     axis = ctx.hand.frame()[1][:, 0] * [1, 1, 0]
     axis = axis / (np.linalg.norm(axis) or 1.0)
     far = 0.5
@@ -63,11 +62,11 @@ def section_widths(ctx, heights):
         c = np.array([x, y, h])
         starts += [c + far * axis, c - far * axis]
         ends += [c, c]
-    hits = p.rayTestBatch([list(v) for v in starts], [list(v) for v in ends], physicsClientId=cid)
+    hits = ctx.world.ray_hits(starts, ends)
     out = []
     for a, b in zip(hits[0::2], hits[1::2]):
         if a[0] == ctx.obj and b[0] == ctx.obj:
-            out.append(float(np.linalg.norm(np.array(a[3]) - np.array(b[3]))))
+            out.append(float(np.linalg.norm(np.array(a[1]) - np.array(b[1]))))
         else:
             out.append(0.0)
     return np.array(out)
@@ -117,7 +116,7 @@ def cavity_radius(instance):
 
 def approach(ctx, p, log, target=_outside_target):
     """Come down from above onto the grasp pose, fingers open (or pre-shaped)."""
-    lo, hi = ctx.world.p.getAABB(ctx.obj, -1, physicsClientId=ctx.world.cid)
+    lo, hi = ctx.world.aabb(ctx.obj)
     top = hi[2]
     if target is _outside_target and hi[2] - lo[2] <= TABLE_CLEARANCE:
         # the tips stop TABLE_CLEARANCE above the table: they would close over the object untouched
@@ -261,12 +260,12 @@ def shake(ctx, p, log):
         a = min(t / ramp, 1.0)
         ctx.move_wrist(centre + radius * a * np.array([math.cos(w * t) - 1, math.sin(w * t), 0.0]))
         tilt = p.tilt * math.sin(w * t / 4)
-        ctx.world.p.setGravity(0, g * math.sin(tilt), -g * math.cos(tilt), physicsClientId=ctx.world.cid)
+        ctx.world.set_gravity((0, g * math.sin(tilt), -g * math.cos(tilt)))
 
     try:
         ctx.run(p.shake_s, _watch_loss(ctx, move))
     finally:
-        ctx.world.p.setGravity(0, 0, -g, physicsClientId=ctx.world.cid)
+        ctx.world.set_gravity((0, 0, -g))
     ctx.move_wrist(centre)
     ctx.run(0.2, _watch_loss(ctx))
     log.drift = drift_of(ctx, ref)
@@ -434,7 +433,7 @@ def _roller_inner_radius(ctx):
 
 def _object_reach(ctx):
     """Largest horizontal distance (m) of the object's collision box corners from the wrist axis."""
-    lo, hi = ctx.world.p.getAABB(ctx.obj, -1, physicsClientId=ctx.world.cid)
+    lo, hi = ctx.world.aabb(ctx.obj)
     centre = ctx.rest_position[:2] + [ctx.pert.wrist_dx, ctx.pert.wrist_dy]
     return max(math.hypot(x - centre[0], y - centre[1]) for x in (lo[0], hi[0]) for y in (lo[1], hi[1]))
 

@@ -23,6 +23,8 @@ from .hand import DOWN, Hand
 from .metrics import SLIP_NOISE_FLOOR, SlipTally, blowup, contact_load, pose_error
 from .quality import grasp_quality
 from ..seeds import rng_for
+from .transforms import multiply, quat_from_euler, rotation
+from .engines import open_world
 from .world import CONTROL_HZ, PhysicsSettings, World, add_object, pair_friction
 
 __all__ = ["Perturbation", "TrialContext", "Blowup", "run_trial", "OUTCOMES"]
@@ -101,8 +103,8 @@ class TrialContext:
         self.obj = self._place_object()
         self.rest_position, _ = world.pose(self.obj)
         self.size = max(instance.extents)
-        self.wrist_orientation = world.p.getQuaternionFromEuler((perturbation.wrist_tilt, 0, 0))
-        self.wrist_orientation = world.p.multiplyTransforms((0, 0, 0), DOWN, (0, 0, 0), self.wrist_orientation)[1]
+        self.wrist_orientation = quat_from_euler((perturbation.wrist_tilt, 0, 0))
+        self.wrist_orientation = multiply((0, 0, 0), DOWN, (0, 0, 0), self.wrist_orientation)[1]
         self.hand = Hand(world, model, (0, 0, 1.0), self.wrist_orientation)
         self.hand.reset_joints(0.0)
         self.tips = self.hand.tip_links()
@@ -155,14 +157,13 @@ class TrialContext:
         if inst.kind not in STANDING_KINDS:  # smallest size vertical
             axis = int(np.argmin(inst.extents))
             tilt = [(0.0, math.pi / 2, 0.0), (math.pi / 2, 0.0, 0.0), (0.0, 0.0, 0.0)][axis]
-        lay = w.p.getQuaternionFromEuler(tilt)
-        yaw = w.p.getQuaternionFromEuler((0.0, 0.0, pert.object_yaw))
-        orn = w.p.multiplyTransforms((0, 0, 0), yaw, (0, 0, 0), lay)[1]
+        lay = quat_from_euler(tilt)
+        yaw = quat_from_euler((0.0, 0.0, pert.object_yaw))
+        orn = multiply((0, 0, 0), yaw, (0, 0, 0), lay)[1]
         body = add_object(w, inst, (pert.object_dx, pert.object_dy, 0.5), orn,
                           friction_scale=pert.friction_scale, mass_scale=pert.mass_scale)
-        low = w.p.getAABB(body, -1, physicsClientId=w.cid)[0][2]
-        w.p.resetBasePositionAndOrientation(body, (pert.object_dx, pert.object_dy, 0.5 - low + 2e-4), orn,
-                                            physicsClientId=w.cid)
+        low = w.aabb(body)[0][2]
+        w.reset_pose(body, (pert.object_dx, pert.object_dy, 0.5 - low + 2e-4), orn)
         for _ in range(int(SETTLE_TIME / w.settings.time_step)):
             w.step()
             v, spin = w.velocity(body)
@@ -172,7 +173,7 @@ class TrialContext:
         return body
 
     def object_top(self):
-        return self.world.p.getAABB(self.obj, -1, physicsClientId=self.world.cid)[1][2]
+        return self.world.aabb(self.obj)[1][2]
 
     def tip_span(self):
         """(depth of the tips' centre below the palm, depth of their lowest point) in the hand frame, m."""
@@ -337,7 +338,7 @@ class TrialContext:
         """Object pose in the hand frame: position (3,) of its COM and rotation matrix (3, 3)."""
         hp, hr = self.hand.frame()
         pos, orn = self.world.pose(self.obj)
-        rot = np.array(self.world.p.getMatrixFromQuaternion(orn)).reshape(3, 3)
+        rot = rotation(orn)
         return (pos - hp) @ hr, hr.T @ rot
 
     def touching_links(self):
@@ -390,7 +391,7 @@ def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, set
         raise HarnessError(f"routine {routine.name!r} cannot run on {model.name} / {instance.name}: {problem}")
     started = time.perf_counter()
     own = world is None
-    world = World(settings) if own else world
+    world = open_world(settings) if own else world
     if not own:
         world.reset()
     try:

@@ -1,15 +1,19 @@
-"""One headless pybullet client with every physics setting explicit and recorded.
+"""The physics world every routine, hand, contact and metric talks to, whatever engine runs it.
 
-Honest defaults, each chosen against an engine default that biases results:
-- linear and angular damping 0 on every link (the engine's 0.04 drag slows free rollers),
-- friction anchors on, so held objects do not creep through solver drift and a measured slip
-  is a real one,
-- a pair's Coulomb friction is chosen deliberately: the engine multiplies the two bodies'
-  coefficients, so each body gets sqrt(its own mu) and the pair acts with the geometric mean
-  sqrt(mu_a mu_b), which is what the journal records as the pair's value,
-- deterministic overlapping pairs, so the same commands give the same numbers,
-- no sleeping: a resting body would ignore its motors' next command (a roller pressed on a
-  fixed object did not turn at any torque until sleeping was disabled).
+`engines.open_world(settings)` opens the engine named by `settings.engine` (bullet_world.py:
+pybullet; mujoco_world.py: MuJoCo, an optional extra). This class states the operations they share; an
+engine implements them with every physics setting explicit and recorded, chosen so both pass the
+same reference checks (DEVELOPERS.md, "Engines"):
+- a pair's Coulomb friction is sqrt(mu_a mu_b) of the two bodies' own coefficients (the value the
+  journal records),
+- no damping, no sleeping, deterministic stepping (the same commands give the same numbers).
+
+Bodies are ints; a body's links are ints with -1 for its base. A contact between body A and B is a
+tuple laid out as pybullet reports it, so the hot paths read it without conversion:
+[3] link of A, [4] link of B, [5] point on A, [6] point on B (m, world), [7] normal on B pointing
+into A, [8] signed distance (m, negative when overlapping), [9] normal force (N), [10] first
+friction force (N) along [11], [12] second friction force along [13]; points are those found at the
+start of the last step (see contact.py), velocities are end-of-step.
 """
 
 from __future__ import annotations
@@ -23,10 +27,12 @@ import numpy as np
 
 from ..constants import GRAVITY
 
-__all__ = ["CONTROL_HZ", "PhysicsSettings", "World", "pair_friction", "model_cache"]
+__all__ = ["CONTROL_HZ", "ENGINES", "PhysicsSettings", "World", "JointInfo", "pair_friction", "model_cache",
+           "add_object"]
 
 
 CONTROL_HZ = 60  # Hz; the controller and the metrics run at this servo rate whatever the physics step
+ENGINES = ("pybullet", "mujoco")  # physics engines a world can run on
 
 
 @dataclass(frozen=True)
@@ -40,6 +46,7 @@ class PhysicsSettings:
     gravity: float = GRAVITY  # m/s^2 along -z
     max_joint_speed: float = 1000.0  # rad/s; lifts the engine's 100 rad/s cap so roller limits come from specs
     table_friction: float = 1.0  # the table's own mu; pair value with an object is sqrt(mu_table mu_obj)
+    engine: str = "pybullet"  # one of ENGINES
 
     @property
     def time_step(self):
@@ -56,7 +63,8 @@ class PhysicsSettings:
         return replace(self, solver_iterations=self.solver_iterations * iterations, step_hz=self.step_hz * step)
 
     def label(self):
-        return f"{self.solver_iterations} it @ {self.step_hz} Hz"
+        engine = "" if self.engine == "pybullet" else f" ({self.engine})"
+        return f"{self.solver_iterations} it @ {self.step_hz} Hz{engine}"
 
     def record(self):
         return asdict(self)
@@ -72,31 +80,28 @@ def model_cache():
     return Path(os.environ.get("GRASP_HARNESS_CACHE", Path.home() / ".cache" / "grasp-harness" / "models"))
 
 
+@dataclass(frozen=True)
+class JointInfo:
+    """A joint of a loaded body: its index is its child link's."""
+
+    name: str
+    link_name: str  # its child link
+    lower: float  # rad (or m)
+    upper: float
+    effort: float  # N m (or N), the motor's limit
+    speed: float  # rad/s (or m/s)
+    axis: tuple  # unit axis in the child link's frame
+    parent: int  # parent link, -1 for the base
+
+
 class World:
-    """A DIRECT (no GPU, no display) client. Use as a context manager or call close()."""
+    """The engine-neutral world; `engines.open_world(settings)` opens the engine's own subclass. Use
+    it as a context manager or call close(). Subclasses implement every operation below."""
 
     def __init__(self, settings: PhysicsSettings = PhysicsSettings()):
-        import pybullet as p
-        self.p = p
         self.settings = settings
-        self.cid = p.connect(p.DIRECT)
-        self.reset()
-
-    def reset(self):
-        """Empty the world and apply the settings again (resetSimulation forgets them)."""
-        p, s = self.p, self.settings
-        p.resetSimulation(physicsClientId=self.cid)
-        p.setPhysicsEngineParameter(fixedTimeStep=s.time_step, numSolverIterations=s.solver_iterations,
-                                    deterministicOverlappingPairs=1, enableFileCaching=0,
-                                    physicsClientId=self.cid)
-        p.setGravity(0, 0, -s.gravity, physicsClientId=self.cid)
-        self.time = 0.0
+        self.time = 0.0  # s since the last reset (the trial resets it when its scene is ready)
         self.table = None
-
-    def close(self):
-        if self.cid is not None:
-            self.p.disconnect(physicsClientId=self.cid)
-            self.cid = None
 
     def __enter__(self):
         return self
@@ -104,94 +109,60 @@ class World:
     def __exit__(self, *exc):
         self.close()
 
-    # --- bodies ---------------------------------------------------------------------------
+    def _todo(self, *args, **kwargs):
+        raise NotImplementedError(f"{type(self).__name__} does not implement this operation")
 
-    def load(self, urdf_path, position=(0, 0, 0), orientation=(0, 0, 0, 1), fixed=False, implicit_cylinders=True):
-        p = self.p
-        flags = p.URDF_USE_INERTIA_FROM_FILE | (p.URDF_USE_IMPLICIT_CYLINDER if implicit_cylinders else 0)
-        body = p.loadURDF(str(urdf_path), position, orientation, useFixedBase=fixed, flags=flags,
-                          physicsClientId=self.cid)
-        for link in range(-1, p.getNumJoints(body, physicsClientId=self.cid)):
-            p.changeDynamics(body, link, linearDamping=0.0, angularDamping=0.0, jointDamping=0.0,
-                             maxJointVelocity=self.settings.max_joint_speed, frictionAnchor=1,
-                             physicsClientId=self.cid)
-        p.changeDynamics(body, -1, activationState=p.ACTIVATION_STATE_DISABLE_SLEEPING, physicsClientId=self.cid)
-        for j in range(p.getNumJoints(body, physicsClientId=self.cid)):
-            # every joint carries a braking velocity motor by default; free them, controllers re-enable
-            p.setJointMotorControl2(body, j, p.VELOCITY_CONTROL, force=0.0, physicsClientId=self.cid)
-        return body
+    # lifetime
+    reset = close = _todo  # reset(): empty the world, apply the settings again
+    version = _todo  # version(): the engine's name and version, for the run record
 
-    def set_surface(self, body, link, friction, restitution=0.0, stiffness=None, damping=None,
-                    rolling=0.0, spinning=0.0):
-        """Give a link its own Coulomb mu (stored as sqrt, see module doc) and contact compliance."""
-        kw = {}
-        if stiffness is not None:
-            kw = {"contactStiffness": stiffness, "contactDamping": damping or 0.0}
-        self.p.changeDynamics(body, link, lateralFriction=math.sqrt(friction), restitution=restitution,
-                              rollingFriction=rolling, spinningFriction=spinning, physicsClientId=self.cid, **kw)
+    # bodies and materials
+    load = _todo  # load(urdf_path, position, orientation, fixed=False, implicit_cylinders=True) -> body;
+    #               position and orientation of the URDF frame
+    set_surface = _todo  # set_surface(body, link, friction, restitution=0, stiffness=None, damping=None,
+    #                      rolling=0, spinning=0): a link's own mu (pairs act with sqrt(mu_a mu_b))
+    add_table = _todo  # add_table(size, top=0, tilt=0, friction=None, rolling=0) -> body (static box)
+    scale_mass = _todo  # scale_mass(body, factor): the base's mass and inertia times factor
+    com_frame = _todo  # com_frame(body) -> (position, quaternion) of the base's COM in its URDF frame
+    joints = _todo  # joints(body) -> [JointInfo], index = joint = child link
+    base_name = _todo  # base_name(body) -> the base link's name
 
-    def add_table(self, size=(1.0, 1.0, 0.05), top=0.0, tilt=0.0, friction=None, rolling=0.0):
-        """A static box whose top face is at height `top` (m), tilted by `tilt` rad about the y axis;
-        `rolling` (m) is its rolling resistance arm (the engine scales it by sqrt(mu) of the other body)."""
-        p = self.p
-        half = [s / 2 for s in size]
-        shape = p.createCollisionShape(p.GEOM_BOX, halfExtents=half, physicsClientId=self.cid)
-        visual = p.createVisualShape(p.GEOM_BOX, halfExtents=half, rgbaColor=(0.82, 0.8, 0.75, 1),
-                                     physicsClientId=self.cid)
-        orn = p.getQuaternionFromEuler((0, tilt, 0))
-        centre = np.array([0, 0, top]) - np.array(p.getMatrixFromQuaternion(orn)).reshape(3, 3)[:, 2] * half[2]
-        self.table = p.createMultiBody(0, shape, visual, centre.tolist(), orn, physicsClientId=self.cid)
-        self.set_surface(self.table, -1, self.settings.table_friction if friction is None else friction,
-                         rolling=rolling)
-        p.changeDynamics(self.table, -1, frictionAnchor=1, physicsClientId=self.cid)
-        return self.table
+    # stepping and state
+    step = _todo  # step(n=1)
+    set_gravity = _todo  # set_gravity((gx, gy, gz)) m/s^2
+    reset_pose = _todo  # reset_pose(body, position, orientation): the base's COM pose, at rest
+    reset_joint = _todo  # reset_joint(body, joint, position): at rest
+    raw_state = _todo  # raw_state(body, link) -> (com position, quaternion, velocity, spin) as tuples
+    raw_states = _todo  # raw_states(body, links) -> {link: raw_state}
+    joint_states = _todo  # joint_states(body, joints) -> [(position, speed)]
+    link_orientation = _todo  # link_orientation(body, link) -> quaternion of the link's URDF frame (may lag a step)
+    link_frame = _todo  # link_frame(body, link) -> (position, quaternion) of the link's URDF frame, current
+    aabb = _todo  # aabb(body, link=-1) -> (lo (3,), hi (3,)) world-aligned box around its collision shapes
+    contacts = _todo  # contacts(body_a, body_b, link_b=None) -> contact tuples (module doc)
+    ray_hits = _todo  # ray_hits(starts, ends) -> [(body or -1, hit point)], the first hit along each ray
 
-    # --- stepping and queries ---------------------------------------------------------------
+    # actuators
+    drive_position = _todo  # drive_position(body, joint, target, force, max_speed, gain): a servo
+    #   commanding speed gain x error / step, capped at max_speed, with at most `force`
+    drive_velocity = _todo  # drive_velocity(body, joint, speed, force)
+    add_wrist = _todo  # add_wrist(body, frame_in_com) -> wrist: a fixed, force-limited attachment of the
+    #   base (at frame_in_com, a pose in its COM frame) to a moving target pose
+    move_wrist = _todo  # move_wrist(wrist, position, orientation, max_force)
+    camera_image = _todo  # camera_image(width, height, view, projection) -> (rgb, segmentation)
 
-    def step(self, n=1):
-        for _ in range(n):
-            self.p.stepSimulation(physicsClientId=self.cid)
-        self.time += n * self.settings.time_step
-
+    # conveniences built on the above
     def pose(self, body):
         """Centre-of-mass position (3,) and quaternion (4,) of a body's base."""
-        pos, orn = self.p.getBasePositionAndOrientation(body, physicsClientId=self.cid)
+        pos, orn, _, _ = self.raw_state(body, -1)
         return np.array(pos), np.array(orn)
 
     def velocity(self, body):
-        v, w = self.p.getBaseVelocity(body, physicsClientId=self.cid)
+        _, _, v, w = self.raw_state(body, -1)
         return np.array(v), np.array(w)
 
     def link_state(self, body, link):
         """COM position, orientation, linear and angular velocity of a link (link -1: the base)."""
         return tuple(np.array(x) for x in self.raw_state(body, link))
-
-    def raw_state(self, body, link):
-        """link_state as the engine's tuples: cheaper where a hot path reads a few floats."""
-        p, cid = self.p, self.cid
-        if link == -1:
-            return (*p.getBasePositionAndOrientation(body, physicsClientId=cid),
-                    *p.getBaseVelocity(body, physicsClientId=cid))
-        # without forward kinematics a link's pose is the one from before the last step's
-        # integration, a step behind its velocity and behind the base's pose (measured in 3.2.7)
-        s = p.getLinkState(body, link, computeLinkVelocity=1, computeForwardKinematics=1, physicsClientId=cid)
-        return s[0], s[1], s[6], s[7]
-
-    def raw_states(self, body, links):
-        """{link: raw_state} of several links of one body, with one engine query for the links >= 0."""
-        out = {}
-        rest = [link for link in links if link >= 0]
-        if -1 in links:
-            out[-1] = self.raw_state(body, -1)
-        if rest:
-            states = self.p.getLinkStates(body, rest, computeLinkVelocity=1, computeForwardKinematics=1,
-                                          physicsClientId=self.cid)
-            out.update({link: (s[0], s[1], s[6], s[7]) for link, s in zip(rest, states)})
-        return out
-
-    def contacts(self, body_a, body_b, link_b=None):
-        kw = {} if link_b is None else {"linkIndexB": link_b}
-        return self.p.getContactPoints(bodyA=body_a, bodyB=body_b, physicsClientId=self.cid, **kw)
 
 
 def add_object(world, instance, position, orientation=(0, 0, 0, 1), friction_scale=1.0, mass_scale=1.0, fixed=False):
@@ -202,9 +173,5 @@ def add_object(world, instance, position, orientation=(0, 0, 0, 1), friction_sca
     world.set_surface(body, -1, instance.friction * friction_scale, instance.restitution,
                       instance.stiffness, instance.damping)
     if mass_scale != 1.0:
-        # scale inertia with mass so the shape's mass distribution stays the same; the engine keeps
-        # the principal moments (the file's tensor diagonalised), which is what it expects back
-        dyn = world.p.getDynamicsInfo(body, -1, physicsClientId=world.cid)
-        world.p.changeDynamics(body, -1, mass=dyn[0] * mass_scale,
-                               localInertiaDiagonal=[m * mass_scale for m in dyn[2]], physicsClientId=world.cid)
+        world.scale_mass(body, mass_scale)
     return body

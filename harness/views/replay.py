@@ -141,16 +141,16 @@ class Survey(TrialRecorder):
 
     def __call__(self, ctx):
         super().__call__(ctx)
-        p, cid, body = ctx.world.p, ctx.world.cid, ctx.hand.body
+        world, body = ctx.world, ctx.hand.body
         if not self.tip_angles:
             palm = ctx.hand.frame()[0]
             for link in ctx.tips:
-                x, y = np.asarray(p.getLinkState(body, link, physicsClientId=cid)[0][:2]) - palm[:2]
+                x, y = np.asarray(world.raw_state(body, link)[0][:2]) - palm[:2]
                 self.tip_angles.append(math.atan2(y, x))
-        corners = [p.getAABB(body, link, physicsClientId=cid) for link in range(-1, p.getNumJoints(body, physicsClientId=cid))]
+        corners = [world.aabb(body, link) for link in [-1, *ctx.hand.limits]]
         palm = ctx.hand.frame()[0]
-        if np.linalg.norm(ctx.world.pose(ctx.obj)[0] - palm) < NEAR_HAND:
-            corners.append(p.getAABB(ctx.obj, -1, physicsClientId=cid))
+        if np.linalg.norm(world.pose(ctx.obj)[0] - palm) < NEAR_HAND:
+            corners.append(world.aabb(ctx.obj))
         lo = np.min([c[0] for c in corners], axis=0)
         hi = np.max([c[1] for c in corners], axis=0)
         self.boxes.append((lo, hi))
@@ -244,12 +244,7 @@ class Camera:
 
     def image(self, world):
         """(rgb (h, w, 3) uint8, segmentation (h, w) int: body unique id per pixel, -1 for background)."""
-        p = world.p
-        _, _, rgba, _, seg = p.getCameraImage(self.width, self.height, list(self.view), list(self.projection),
-                                              renderer=p.ER_TINY_RENDERER, lightDirection=[0.4, -0.6, 1.0],
-                                              shadow=0, physicsClientId=world.cid)
-        rgb = np.asarray(rgba, dtype=np.uint8).reshape(self.height, self.width, 4)[:, :, :3].copy()
-        return rgb, np.asarray(seg, dtype=np.int64).reshape(self.height, self.width)
+        return world.camera_image(self.width, self.height, self.view, self.projection)
 
 
 @dataclass
