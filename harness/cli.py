@@ -29,7 +29,7 @@ def _parser():
     t.add_argument("objects", metavar="OBJECTS", help="object set file")
     t.add_argument("--object", required=True, metavar="NAME", help="object instance name (see `show OBJECTS`)")
     t.add_argument("--routine", default="draw-in-grasp", metavar="NAME",
-                   help="draw-in-grasp (default), pinch-lift, roll, pivot-and-roll, shift, hold-under-shake, inside-grasp")
+                   help="draw-in-grasp (default), pinch-lift, roll, angled-roll, shift, hold-under-shake, inside-grasp")
     t.add_argument("--variant", metavar="NAME", help="variant name (see `show GRIPPER`); default: the one with "
                                                       "the spec's own values, else the first of its sweep")
     t.add_argument("--physics", action="append", default=[], metavar="KEY=VALUE",

@@ -86,8 +86,8 @@ friction = 0.6
 BASES = {
     "duo": ("duo-roller.toml", MODELS / "grippers" / "duo-roller.toml"),
     "tri": ("tri-roller.toml", MODELS / "grippers" / "tri-roller.toml"),
-    "jaw": ("bench-jaw.toml", MODELS / "grippers" / "bench-jaw.toml"),
-    "lab": ("lab-bench.toml", MODELS / "objects" / "lab-bench.toml"),
+    "jaw": ("pad-jaw.toml", MODELS / "grippers" / "pad-jaw.toml"),
+    "lab": ("lab-cell.toml", MODELS / "objects" / "lab-cell.toml"),
     "stress": ("stress.toml", MODELS / "objects" / "stress.toml"),
     "hand": ("own-hand.toml", None),
 }
@@ -300,8 +300,8 @@ CASES = [
          fields=("finger.count",), says=("must be a whole number >= 2 and <= 4; got 5",)),
     Case("angles_deg_length_mismatch", "tri", (put("[finger]", "angles_deg", "[0, 180]"),),
          fields=("finger.angles_deg",), says=("must list one angle per finger (3); got 2",)),
-    Case("jaw_stroke_longer_than_half_opening", "jaw", (put("[jaw]", "stroke_mm", "41"),),
-         fields=("jaw.stroke_mm",), says=("must be at most half the opening (40 mm)",)),
+    Case("jaw_stroke_longer_than_half_opening", "jaw", (put("[jaw]", "stroke_mm", "39"),),
+         fields=("jaw.stroke_mm",), says=("must be at most half the opening (38 mm)",)),
     Case("pad_stiffness_without_damping", "jaw", (drop("[pad]", "damping_n_s_m"),),
          fields=("pad.damping_n_s_m",), says=("is missing; it must be a number >= 0",)),
     # --- gripper specs: unknown names ------------------------------------------------------------

@@ -33,14 +33,14 @@ name = "case"
 root = "{REPO}"
 seed = 3
 trials = 2
-objects = ["models/objects/lab-bench.toml"]
+objects = ["models/objects/lab-cell.toml"]
 
 [[gripper]]
 spec = "{DUO}"
 variants = ["duo-roller[finger.roller.radius_mm=12]"]
 
 [[gripper]]
-spec = "models/grippers/bench-jaw.toml"
+spec = "models/grippers/pad-jaw.toml"
 
 [[routine]]
 name = "draw-in-grasp"
@@ -105,9 +105,9 @@ BAD = {
                             "did you mean 'solver_iterations'?"),
     "unknown key": (spoil("trials = 2", "trails = 2"), "trails", "did you mean 'trials'?"),
     "missing seed": (spoil("seed = 3\n", ""), "seed", "is missing"),
-    "object set is a gripper spec": (spoil('objects = ["models/objects/lab-bench.toml"]',
+    "object set is a gripper spec": (spoil('objects = ["models/objects/lab-cell.toml"]',
                                            f'objects = ["{DUO}"]'), "objects[0]", "must name an object set"),
-    "no object sets": (spoil('objects = ["models/objects/lab-bench.toml"]', "objects = []"), "objects",
+    "no object sets": (spoil('objects = ["models/objects/lab-cell.toml"]', "objects = []"), "objects",
                        "at least one object set"),
     "root is not a folder": (spoil(f'root = "{REPO}"', 'root = "no-such-folder"'), "root",
                              "existing folder"),
@@ -141,8 +141,8 @@ def test_a_problem_inside_a_named_gripper_spec_is_reported_under_the_campaign_fi
     spec = (REPO / DUO).read_text().replace("radius_mm = 12\n", "radius_mm = -12\n", 1)
     (tmp_path / "bad.toml").write_text(spec)
     text = spoil(f'root = "{REPO}"', 'root = "."').replace(f'spec = "{DUO}"', 'spec = "bad.toml"')
-    text = text.replace("models/objects/lab-bench.toml", "set.toml")
-    shutil.copy(REPO / "models/objects/lab-bench.toml", tmp_path / "set.toml")
+    text = text.replace("models/objects/lab-cell.toml", "set.toml")
+    shutil.copy(REPO / "models/objects/lab-cell.toml", tmp_path / "set.toml")
     with pytest.raises(SpecError) as err:
         load_campaign(write(tmp_path, text))
     assert "field 'gripper[0].spec' names a gripper spec" in str(err.value)
@@ -153,10 +153,10 @@ def test_a_problem_inside_a_named_gripper_spec_is_reported_under_the_campaign_fi
 
 def test_expansion_skips_unsuited_combinations_and_counts_them(tmp_path):
     plan = expand(load_campaign(write(tmp_path, GOOD)))
-    n_objects = 14  # lab-bench instances
-    assert plan.skipped == n_objects * 2  # bench-jaw has no rollers: draw-in-grasp skipped, 2 trials each
+    n_objects = 14  # lab-cell instances
+    assert plan.skipped == n_objects * 2  # pad-jaw has no rollers: draw-in-grasp skipped, 2 trials each
     assert len(plan.tasks) == (2 * n_objects + n_objects) * 2
-    assert all(r == "draw-in-grasp" and v == "bench-jaw" for v, _, r, _ in plan.skipped_cells)
+    assert all(r == "draw-in-grasp" and v == "pad-jaw" for v, _, r, _ in plan.skipped_cells)
 
 
 def test_keys_are_stable_and_draws_are_paired_across_variants(tmp_path):
@@ -169,7 +169,7 @@ def test_keys_are_stable_and_draws_are_paired_across_variants(tmp_path):
     by_pair = {}
     for t in a.tasks:
         by_pair.setdefault(t.payload["pair_key"], []).append(t.payload)
-    assert max(len(v) for v in by_pair.values()) == 4  # 3 duo-roller variants + bench-jaw (pinch-lift)
+    assert max(len(v) for v in by_pair.values()) == 4  # 3 duo-roller variants + pad-jaw (pinch-lift)
     for payloads in by_pair.values():
         assert len({p["variant"] for p in payloads}) == len(payloads)
         assert all(p["seed"] == payloads[0]["seed"] and p["perturbation"] == payloads[0]["perturbation"]

@@ -77,7 +77,7 @@ mass_scale = [0.9, 1.1]
 
 def campaign(tmp_path, trials, physics=""):
     shutil.copy(REPO / "models/grippers/duo-roller.toml", tmp_path / "duo.toml")
-    shutil.copy(REPO / "models/grippers/bench-jaw.toml", tmp_path / "jaw.toml")
+    shutil.copy(REPO / "models/grippers/pad-jaw.toml", tmp_path / "jaw.toml")
     (tmp_path / "set.toml").write_text(SET)
     path = tmp_path / "c.toml"
     path.write_text(CAMPAIGN.format(trials=trials, physics=physics))

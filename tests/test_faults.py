@@ -33,6 +33,7 @@ import random
 import subprocess
 import sys
 import time
+import tomllib
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
@@ -41,12 +42,14 @@ import pytest
 from physics_scenes import one_object, roller_hand
 from test_bad_specs import CASES, MESH, PART_URDF_OBJECT, append, hand_urdf, make, put, write_base
 from test_campaign import BAD, DUO, REPO, SET, TINY, _run, _start, _wait_for_rows, write
-from test_trials import gripper, same_row
+from test_trials import MODELS, gripper, same_row
 
 import harness.campaigns.campaign
 from harness.campaigns.campaign import expand, load_campaign, run_payload
 from harness.commands.campaign import ERRORED
 from harness.campaigns.journal import Journal
+from harness.models.grippers import build_models
+from harness.models.specs import load_gripper
 from harness.sim.routines import make_routine
 from harness.sim.trial import run_trial
 from harness.sim.world import PhysicsSettings
@@ -255,11 +258,19 @@ def test_run_of_a_campaign_naming_broken_files_exits_2_without_a_run_folder(scra
 
 # A light object pinched by a hand hundreds of times heavier: the solver pushes it several mm into
 # the fingers (measured 5-7 mm for 0.1 g to 1 g), a blow-up; the same object at a normal mass is
-# gripped sanely (control). Measured: the bench-jaw (40 N) on a 10 mm sphere: 0.3 g invalid,
-# 3 g and 30 g held; the duo-roller on a 45 mm vial: 0.3 g invalid, 12 g ejected (a valid outcome).
+# gripped sanely (control). Measured: the pad-jaw (44 N) closing at 60 mm/s on a 10 mm sphere:
+# 0.3 g invalid, 3 g and 30 g held (at its own 36 mm/s the 0.3 g sphere is held: the blow-up comes
+# from the impact); the duo-roller on a 45 mm vial: 0.3 g invalid, 12 g ejected (a valid outcome).
+def _fast_jaw():
+    raw = tomllib.loads((MODELS / "grippers" / "pad-jaw.toml").read_text())
+    raw["jaw"]["speed_mm_s"] = 60
+    return build_models(load_gripper(MODELS / "grippers" / "pad-jaw.toml", raw))[0]
+
+
 LIGHT = [
-    ("bench-jaw", "pinch-lift", "sphere", dict(radius_mm=10, friction=0.7), 0.3, 30.0),
-    ("duo-roller", "draw-in-grasp", "cylinder", dict(radius_mm=8, height_mm=45, friction=0.7), 0.3, 12.0),
+    (_fast_jaw, "pinch-lift", "sphere", dict(radius_mm=10, friction=0.7), 0.3, 30.0),
+    (lambda: gripper("duo-roller"), "draw-in-grasp", "cylinder", dict(radius_mm=8, height_mm=45, friction=0.7),
+     0.3, 12.0),
 ]
 
 
@@ -270,7 +281,7 @@ def test_a_light_object_crushed_in_a_grip_is_invalid_and_its_normal_twin_is_not(
     # 240 Hz and 100 iterations a 0.3 g part under a full grip sinks 5+ mm into the fingers
     # (measured); at the finer default (480 Hz) the 0.3 g sphere is simply held.
     coarse = PhysicsSettings(step_hz=240, solver_iterations=100)
-    rows = {m: run_trial(gripper(hand), one_object(kind, mass_g=m, **shape), make_routine(routine), seed=0,
+    rows = {m: run_trial(hand(), one_object(kind, mass_g=m, **shape), make_routine(routine), seed=0,
                          settings=coarse)
             for m in (light, normal)}
     assert rows[light]["outcome"] == "invalid" and not rows[light]["success"]

@@ -34,8 +34,8 @@ from harness.models.specs import load_any
 ROOT = Path(__file__).resolve().parents[1]
 GRIPPER_DIR = ROOT / "models" / "grippers"
 OBJECT_DIR = ROOT / "models" / "objects"
-GRIPPER_FILES = ("duo-roller.toml", "tri-roller.toml", "bench-jaw.toml")
-OBJECT_SET_FILES = ("lab-bench.toml", "stress.toml")
+GRIPPER_FILES = ("duo-roller.toml", "tri-roller.toml", "pad-jaw.toml")
+OBJECT_SET_FILES = ("lab-cell.toml", "stress.toml")
 LOAD_FLAGS = p.URDF_USE_INERTIA_FROM_FILE | p.URDF_USE_IMPLICIT_CYLINDER
 
 WRITTEN = 1e-9  # URDF numbers are printed with 10 significant digits

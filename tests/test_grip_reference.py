@@ -13,11 +13,11 @@ from harness.models.specs import load_gripper
 from harness.sim.engines import open_world
 from harness.sim.world import PhysicsSettings, add_object
 
-JAW = Path(__file__).resolve().parents[1] / "models" / "grippers" / "bench-jaw.toml"
+JAW = Path(__file__).resolve().parents[1] / "models" / "grippers" / "pad-jaw.toml"
 
 
 def _drop_after_one_second(force, mu, mass):
-    """Metres a box slides out of the bench-jaw pads in 1 s when the jaws press with `force` N each."""
+    """Metres a box slides out of the pad-jaw pads in 1 s when the jaws press with `force` N each."""
     raw = tomllib.loads(JAW.read_text())
     raw["jaw"]["force_n"] = force
     raw["pad"]["friction"] = mu  # pad and box both mu: the pair's value is mu (see world.pair_friction)

@@ -70,6 +70,17 @@ def test_floats_round_trip_bit_exactly_through_a_reopened_journal(tmp_path):
     assert back["n"] == 2**53 + 1 and back["ok"] is True and math.isnan(back["nan"])
 
 
+def test_a_run_recorded_under_an_old_column_name_reads_under_the_current_one(tmp_path):
+    # runs recorded before the actuator lag column gained its unit suffix still load
+    with Journal(tmp_path) as journal:
+        journal.add({"trial_key": "old", "pert_actuator_lag": 0.02, "slip_mm": 1.0})
+        journal.add({"trial_key": "new", "pert_actuator_lag_s": 0.01, "slip_mm": 2.0})
+    with Journal(tmp_path, create=False) as journal:
+        rows = journal.rows()
+    assert rows == [{"trial_key": "old", "pert_actuator_lag_s": 0.02, "slip_mm": 1.0},
+                    {"trial_key": "new", "pert_actuator_lag_s": 0.01, "slip_mm": 2.0}]
+
+
 def test_a_row_needs_a_key_and_a_missing_journal_is_not_created_on_request(tmp_path):
     with Journal(tmp_path) as journal, pytest.raises(ValueError, match="needs a 'trial_key'"):
         journal.add({"outcome": "held"})

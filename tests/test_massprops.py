@@ -24,7 +24,7 @@ from harness.models.objects import generate
 from harness.models.specs import load_any
 
 ROOT = Path(__file__).resolve().parents[1]
-OBJECT_SET_FILES = (ROOT / "models" / "objects" / "lab-bench.toml", ROOT / "models" / "objects" / "stress.toml")
+OBJECT_SET_FILES = (ROOT / "models" / "objects" / "lab-cell.toml", ROOT / "models" / "objects" / "stress.toml")
 RACK_CLIP_OBJ = ROOT / "models" / "objects" / "meshes" / "rack-clip.obj"
 
 EXACT = 1e-9  # relative: both sides are exact formulas / exact integrals in float64

@@ -85,7 +85,7 @@ def test_slip_distance_of_transients_matches_a_per_step_integral(gripper_name, o
         label = ctx.phases[-1].label
         per_phase[label] = per_phase.get(label, 0.0) + (load[0] if load else 0.0) * world.settings.time_step
 
-    row = observed_trial(gripper(gripper_name), object_set("lab-bench")[obj], make_routine(routine), each)
+    row = observed_trial(gripper(gripper_name), object_set("lab-cell")[obj], make_routine(routine), each)
     checked = 0
     for label, reference in per_phase.items():
         if reference * 1e3 > 0.05 and label != "approach":  # the observer starts after the first tick
@@ -108,7 +108,7 @@ def test_a_static_grasp_holds_still_and_its_braked_rollers_do_not_creep(obj):
             angles.append(ctx.hand.joint_positions(ctx.hand.roll_j))
 
     model = gripper("duo-roller", "duo-roller[finger.roller.radius_mm=12]")
-    row = observed_trial(model, object_set("lab-bench")[obj], make_routine("draw-in-grasp"), each)
+    row = observed_trial(model, object_set("lab-cell")[obj], make_routine("draw-in-grasp"), each)
     assert row["outcome"] == "held", row["reason"]
     assert row["hold_slip_mm"] < 0.05
     assert row["hold_drift_mm"] < 0.01
@@ -156,17 +156,17 @@ def test_a_held_mesh_object_slips_no_more_than_it_moves_against_the_touching_lin
 def test_drift_is_reported_only_while_the_object_is_in_the_hand():
     # A grip with a twentieth of the motors' torque cannot lift the steel weight: it is lost, and its
     # fall is not a drift of the grasp (NaN), while slip still reports what the contacts did.
-    row = run_trial(gripper("bench-jaw"), object_set("stress")["steel-weight"],
+    row = run_trial(gripper("pad-jaw"), object_set("stress")["steel-weight"],
                     make_routine("pinch-lift", {"grip_torque": 0.05}), seed=0)
     assert row["outcome"] in ("dropped", "ejected", "missed"), row["outcome"]
     assert math.isnan(row["drift_mm"]) and math.isnan(row["hold_drift_mm"])
-    held = run_trial(gripper("bench-jaw"), object_set("lab-bench")["vial-1"], make_routine("pinch-lift"), seed=0)
+    held = run_trial(gripper("pad-jaw"), object_set("lab-cell")["vial-1"], make_routine("pinch-lift"), seed=0)
     assert held["outcome"] == "held" and math.isfinite(held["drift_mm"])
 
 
 def test_rows_record_the_physics_they_ran_with():
     settings = PhysicsSettings(step_hz=480, solver_iterations=60)
-    row = run_trial(gripper("bench-jaw"), object_set("lab-bench")["vial-1"], make_routine("pinch-lift"), seed=0,
+    row = run_trial(gripper("pad-jaw"), object_set("lab-cell")["vial-1"], make_routine("pinch-lift"), seed=0,
                     settings=settings)
     assert (row["step_hz"], row["solver_iterations"]) == (480, 60)
     assert row["steps"] % 8 == 0  # 8 physics steps per 60 Hz control tick at 480 Hz

@@ -48,7 +48,7 @@ def tiny_run(folder: Path, workers=2):
     """(run folder, campaign file) of the 8-trial campaign above, run with `workers` processes."""
     folder.mkdir(parents=True, exist_ok=True)
     shutil.copy(REPO / "models/grippers/duo-roller.toml", folder / "duo.toml")
-    shutil.copy(REPO / "models/grippers/bench-jaw.toml", folder / "jaw.toml")
+    shutil.copy(REPO / "models/grippers/pad-jaw.toml", folder / "jaw.toml")
     (folder / "set.toml").write_text(OBJECTS)
     campaign = folder / "tiny.toml"
     campaign.write_text(CAMPAIGN)

@@ -32,10 +32,10 @@ def objects(set_name):
 
 
 @pytest.mark.parametrize("name", ["screw-cap-0", "screw-cap-1", "sample-tube-0", "sample-tube-1", "seal-ring"])
-def test_duo_roller_picks_low_lab_bench_parts_off_the_table(name):
+def test_duo_roller_picks_low_lab_cell_parts_off_the_table(name):
     # the ordinary draw-in grasp misses all of these (its tips stay 3 mm above the table and meet
     # them at or above their top); nominal trials at the default physics
-    row = run_trial(own("duo-roller"), objects("lab-bench")[name], make_routine("surface-draw-in"), seed=0)
+    row = run_trial(own("duo-roller"), objects("lab-cell")[name], make_routine("surface-draw-in"), seed=0)
     assert row["outcome"] == "held", row["reason"]
     assert row["touch-down_ok"] and row["straddle_ok"] and row["climb_ok"] and row["hold_ok"]
 
@@ -49,7 +49,7 @@ def test_a_cover_slip_is_missed_with_the_contact_angle_the_physics_gives():
 
 
 def test_the_jaw_has_no_rollers_to_draw_in_with():
-    reason = make_routine("surface-draw-in").unsuitable(own("bench-jaw"), objects("lab-bench")["screw-cap-0"])
+    reason = make_routine("surface-draw-in").unsuitable(own("pad-jaw"), objects("lab-cell")["screw-cap-0"])
     assert reason.startswith("needs driven rollers")
 
 

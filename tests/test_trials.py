@@ -29,12 +29,12 @@ def gripper(name):
 
 
 @lru_cache(maxsize=None)
-def lab_bench():
-    return tuple(generate(load_any(MODELS / "objects" / "lab-bench.toml")))
+def lab_cell():
+    return tuple(generate(load_any(MODELS / "objects" / "lab-cell.toml")))
 
 
 def instance(name):
-    return next(i for i in lab_bench() if i.name == name)
+    return next(i for i in lab_cell() if i.name == name)
 
 
 def same_row(a, b):
@@ -59,15 +59,16 @@ def test_a_trial_depends_only_on_its_inputs_and_seed():
         again = run_trial(gripper("duo-roller"), instance("vial-1"), routine, pert, seed=7, world=world)
     same_row(first, again)
     assert first["pert_object_dx_mm"] == pytest.approx(2.0) and first["pert_object_yaw_deg"] == pytest.approx(17.19, abs=0.01)
+    assert first["pert_actuator_lag_s"] == 0.02 and "pert_actuator_lag" not in first
 
 
-def test_draw_in_grasp_picks_most_lab_bench_objects_and_grippers_differ():
+def test_draw_in_grasp_picks_most_lab_cell_objects_and_grippers_differ():
     # The demo scenario: the roller grippers draw most bench objects off the table and hold them;
     # the two designs do not behave alike, and objects differ in difficulty.
     routine = make_routine("draw-in-grasp")
-    rows = {g: [run_trial(gripper(g), o, routine, seed=0) for o in lab_bench()] for g in ("duo-roller", "tri-roller")}
+    rows = {g: [run_trial(gripper(g), o, routine, seed=0) for o in lab_cell()] for g in ("duo-roller", "tri-roller")}
     held = {g: sum(r["outcome"] == "held" for r in rs) for g, rs in rows.items()}
-    n = len(lab_bench())
+    n = len(lab_cell())
     assert sum(held.values()) > n  # more than half of all 2 x 14 trials
     assert min(held.values()) >= 0.4 * n
     outcomes = {g: [r["outcome"] for r in rs] for g, rs in rows.items()}
@@ -82,10 +83,10 @@ def test_draw_in_grasp_picks_most_lab_bench_objects_and_grippers_differ():
 
 def test_pinch_lift_baseline_runs_on_the_jaw_and_roller_routines_do_not():
     routine = make_routine("pinch-lift")
-    rows = [run_trial(gripper("bench-jaw"), o, routine, seed=0) for o in lab_bench()[:8]]
+    rows = [run_trial(gripper("pad-jaw"), o, routine, seed=0) for o in lab_cell()[:8]]
     assert sum(r["outcome"] == "held" for r in rows) >= 5
     for name in ROUTINES:
-        reason = make_routine(name).unsuitable(gripper("bench-jaw"), instance("vial-0"))
+        reason = make_routine(name).unsuitable(gripper("pad-jaw"), instance("vial-0"))
         assert (reason is None) == (name == "pinch-lift"), name
 
 
@@ -162,7 +163,7 @@ def test_a_blow_up_is_invalid_not_a_design_failure():
     # An absurdly soft object (1 N/m) sinks through the table: the engine cannot be trusted there,
     # so the trial is `invalid` (excluded from success rates), not `dropped`.
     soft = one_object("sphere", radius_mm=20, mass_g=30, friction=0.7, stiffness_n_m=1, damping_n_s_m=0.01)
-    row = run_trial(gripper("bench-jaw"), soft, make_routine("pinch-lift"), seed=0)
+    row = run_trial(gripper("pad-jaw"), soft, make_routine("pinch-lift"), seed=0)
     assert row["outcome"] == "invalid" and not row["success"]
     assert "table" in row["reason"]
 

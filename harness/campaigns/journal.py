@@ -13,7 +13,8 @@ import sqlite3
 import time
 from pathlib import Path
 
-__all__ = ["JOURNAL_NAME", "EVENTS_NAME", "Journal", "EventLog", "read_events", "to_json"]
+__all__ = ["JOURNAL_NAME", "EVENTS_NAME", "RENAMED_COLUMNS", "Journal", "EventLog", "read_events", "to_json",
+           "current_names"]
 
 JOURNAL_NAME = "journal.sqlite"
 EVENTS_NAME = "events.jsonl"
@@ -31,7 +32,17 @@ _SCHEMA = """CREATE TABLE IF NOT EXISTS trials (
 _INSERT = """INSERT OR IGNORE INTO trials (trial_key, seq, finished_at, outcome, row)
     SELECT ?, COALESCE(MAX(seq), 0) + 1, ?, ?, ? FROM trials"""
 
+# Columns renamed since runs were first recorded: old name -> current name. Old runs still load.
+RENAMED_COLUMNS = {"pert_actuator_lag": "pert_actuator_lag_s"}
+
 _BUSY_TIMEOUT_S = 30.0  # a reader or writer waits this long for a lock instead of failing
+
+
+def current_names(row: dict) -> dict:
+    """`row` with any column named by RENAMED_COLUMNS under its current name."""
+    if RENAMED_COLUMNS.keys().isdisjoint(row):
+        return row
+    return {RENAMED_COLUMNS.get(k, k): v for k, v in row.items()}
 
 
 def _plain(value):
@@ -74,9 +85,10 @@ class Journal:
         return {key for (key,) in self._db.execute("SELECT trial_key FROM trials")}
 
     def rows(self) -> list[dict]:
-        """Every recorded row, in the order the trials finished."""
+        """Every recorded row, in the order the trials finished; columns renamed since are read under
+        their current names."""
         cursor = self._db.execute("SELECT row FROM trials ORDER BY seq")
-        return [json.loads(text) for (text,) in cursor]
+        return [current_names(json.loads(text)) for (text,) in cursor]
 
     def count(self) -> int:
         return self._db.execute("SELECT COUNT(*) FROM trials").fetchone()[0]

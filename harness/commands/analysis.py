@@ -148,11 +148,12 @@ def load_table(path):
         return load_run(p)
     if not p.is_file():
         raise _error(f"no run folder or results file at {path}")
+    from harness.campaigns.journal import RENAMED_COLUMNS
     if p.suffix == ".csv":
-        return pd.read_csv(p, dtype=dict.fromkeys(STRING_COLUMNS, str))
+        return pd.read_csv(p, dtype=dict.fromkeys(STRING_COLUMNS, str)).rename(columns=RENAMED_COLUMNS)
     if p.suffix == ".parquet":
         try:
-            return pd.read_parquet(p)
+            return pd.read_parquet(p).rename(columns=RENAMED_COLUMNS)
         except ImportError as exc:
             raise _error(f"reading {path} needs a Parquet engine (pip install pyarrow): {exc}") from None
     raise _error(f"{path} is neither a run folder nor a .csv or .parquet results table")

@@ -2,7 +2,7 @@
 
 Every figure is measured when the command runs; nothing is stored or assumed. The scenario is the
 draw-in-grasp routine on the duo-roller demo gripper (the quickstart's 12 mm roller variant) and the
-lab-bench objects, trial i on object i (cycling) with seed i and the nominal perturbation.
+lab-cell objects, trial i on object i (cycling) with seed i and the nominal perturbation.
 
 overhead
     Harness trials against bare pybullet on the same scene, steps and commands. Each trial runs
@@ -63,7 +63,7 @@ __all__ = ["register", "cmd_bench", "measure_overhead", "measure_scaling", "meas
 REPO = Path(__file__).resolve().parents[2]
 QUICKSTART = REPO / "campaigns" / "quickstart.toml"
 GRIPPER = REPO / "models" / "grippers" / "duo-roller.toml"
-OBJECTS = REPO / "models" / "objects" / "lab-bench.toml"
+OBJECTS = REPO / "models" / "objects" / "lab-cell.toml"
 VARIANT = "duo-roller[finger.roller.radius_mm=12]"
 ROUTINE = "draw-in-grasp"
 REPEATS = 3

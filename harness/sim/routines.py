@@ -88,7 +88,7 @@ class RollParams(DrawInParams):
 
 
 @dataclass(frozen=True, kw_only=True)
-class PivotRollParams(RollParams):
+class AngledRollParams(RollParams):
     pivot: float = param("pivot_deg", unit="deg", default=math.pi / 4, doc="roller pivot angle before rolling")
     pivot_s: float = param("pivot_s", gt=0, default=0.5)
 
@@ -214,7 +214,7 @@ ROUTINES = {
     "draw-in-grasp": (DrawInParams, (*_GRASPED, (hold, HOLD)), "rollers"),
     "pinch-lift": (Params, ((approach, GRASP), (close, GRASP), (lift, HOLD), (hold, HOLD)), ""),
     "roll": (RollParams, (*_GRASPED, (roll, HOLD), (hold, HOLD)), "rollers"),
-    "pivot-and-roll": (PivotRollParams, (*_GRASPED, (pivot, HOLD), (roll, HOLD), (hold, HOLD)), "rollers"),
+    "angled-roll": (AngledRollParams, (*_GRASPED, (pivot, HOLD), (roll, HOLD), (hold, HOLD)), "rollers"),
     "shift": (ShiftParams, (*_GRASPED, (shift, HOLD), (hold, HOLD)), "rollers"),
     "hold-under-shake": (ShakeParams, (*_GRASPED, (shake, HOLD)), "rollers"),
     "surface-draw-in": (SurfaceParams, ((touch_down, GRASP), (straddle, GRASP), (climb, GRASP), (lift, HOLD),

@@ -78,7 +78,9 @@ class Perturbation:
         units = {"object_dx": 1e3, "object_dy": 1e3, "wrist_dx": 1e3, "wrist_dy": 1e3, "wrist_dz": 1e3,
                  "object_yaw": 180 / math.pi, "wrist_tilt": 180 / math.pi}
         suffix = {1e3: "_mm", 180 / math.pi: "_deg"}
-        return {f"pert_{k}{suffix.get(units.get(k), '')}": v * units.get(k, 1.0) for k, v in asdict(self).items()}
+        kept = {"actuator_lag": "_s"}  # already in its column's unit
+        return {f"pert_{k}{kept.get(k) or suffix.get(units.get(k), '')}": v * units.get(k, 1.0)
+                for k, v in asdict(self).items()}
 
 
 @dataclass
