@@ -51,18 +51,21 @@ def _parser():
     register_convergence(sub)
     from .commands.bench import register as register_bench
     register_bench(sub)
+    from .commands.envelope import register as register_envelope
+    register_envelope(sub)
     return p
 
 
 def main(argv=None):
     args = _parser().parse_args(argv)
     from .errors import HarnessError, SpecError
-    from .commands import analysis, bench, campaign, convergence, report
+    from .commands import analysis, bench, campaign, convergence, envelope, report
     handlers = {"check": cmd_check, "build": cmd_build, "show": cmd_show, "try": cmd_try,
                 "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank,
                 "plan": campaign.cmd_plan, "run": campaign.cmd_run, "export": campaign.cmd_export,
                 "report": report.cmd_report, "replay": report.cmd_replay, "bench": bench.cmd_bench,
-                "converge": convergence.cmd_converge, "crosscheck": convergence.cmd_crosscheck}
+                "converge": convergence.cmd_converge, "crosscheck": convergence.cmd_crosscheck,
+                "envelope": envelope.cmd_envelope}
     try:
         return handlers[args.command](args)
     except SpecError as exc:
@@ -138,21 +141,10 @@ def _named(items, name, what, source):
     return found[0]
 
 
-def _routine_table(pairs):
+def _routine_table(pairs, flag="--set"):
     """--set KEY=VALUE pairs as a table, each value read as TOML (numbers, lists, true/false)."""
-    import tomllib
-
-    from .errors import SpecError
-    table = {}
-    for pair in pairs:
-        key, sep, value = pair.partition("=")
-        try:
-            table[key.strip()] = tomllib.loads(f"v = {value}")["v"] if sep else None
-        except tomllib.TOMLDecodeError:
-            table[key.strip()] = value  # plain text; the routine's fields say what is allowed
-        if not sep or not key.strip():
-            raise SpecError("--set", [(pair, "must be KEY=VALUE, e.g. angle_deg=90")])
-    return table
+    from .commands.options import key_values
+    return key_values(pairs, flag)
 
 
 def cmd_try(args):
@@ -176,7 +168,7 @@ def cmd_try(args):
         if len(models) > 1:
             why = "the spec's own values" if model.name == spec.own else "the first of the sweep"
             print(f"variant: {model.name} ({why}; --variant picks another)", file=sys.stderr)
-    settings = physics_settings(_routine_table(args.physics), "--physics")
+    settings = physics_settings(_routine_table(args.physics, "--physics"), "--physics")
     instance = _named(generate(load_any(args.objects)), args.object, "--object", args.objects)
     routine = make_routine(args.routine, _routine_table(args.set), file="--set", prefix="")
     problem = routine.unsuitable(model, instance)

@@ -54,8 +54,8 @@ def made(tmp_path_factory):
 
 def test_every_section_is_there_in_order(made):
     _, _, page = made
-    # the run has no error or timeout trials, so the section listing them is left out
-    assert page.h2 == [title for key, title in SECTIONS.items() if key != "errors"]
+    # the run has no error or timeout trials and no pick envelope, so those sections are left out
+    assert page.h2 == [title for key, title in SECTIONS.items() if key not in ("errors", "envelope")]
 
 
 def test_every_embedded_image_decodes_to_a_picture_that_is_not_blank(made):
@@ -131,6 +131,29 @@ def test_report_command_without_a_baseline_leaves_the_regression_out(made, tmp_p
     assert cmd_report(parser.parse_args(["report", str(run), "--out", str(out), "--worst", "0"])) == 0
     assert "figure(s)" in capsys.readouterr().out
     page = Parsed(out.read_text(encoding="utf-8"))
-    assert SECTIONS["regression"] not in page.h2 and len(page.h2) == len(SECTIONS) - 2  # nor errors
+    assert SECTIONS["regression"] not in page.h2 and len(page.h2) == len(SECTIONS) - 3  # nor errors, envelope
     assert cmd_report(parser.parse_args(["report", str(tmp_path / "nowhere"), "--out", str(out)])) == 2
     assert "is not a run folder" in capsys.readouterr().err
+
+
+def test_a_run_folder_holding_a_pick_envelope_shows_its_chart_and_boundary(made, tmp_path):
+    import shutil
+
+    from harness.campaigns.envelope import POINTS_CSV, sweep
+    from harness.sim.world import PhysicsSettings
+    run, _, _ = made
+    copy = tmp_path / "run"
+    shutil.copytree(run, copy)
+    from pathlib import Path
+    spec = Path(__file__).resolve().parents[1] / "models" / "grippers" / "duo-roller.toml"
+    df = sweep(spec, "duo-roller[finger.roller.radius_mm=12]", ["cylinder"], [0.014], [0.1, 0.6], PhysicsSettings())
+    df.to_csv(copy / POINTS_CSV, index=False)
+    out = tmp_path / "with-envelope.html"
+    before = build_report(copy, out, worst=0).images
+    page = Parsed(out.read_text(encoding="utf-8"))
+    assert SECTIONS["envelope"] in page.h2
+    assert page.h2.index(SECTIONS["envelope"]) == page.h2.index(SECTIONS["difficulty"]) + 1
+    text = " ".join(page.text)
+    assert "rigid bite boundary mu = tan(beta)" in text and "measured_mu" in text
+    (copy / POINTS_CSV).unlink()
+    assert build_report(copy, out, worst=0).images == before - 1

@@ -150,6 +150,7 @@ class TrialContext:
         self.shifted = (math.nan, math.nan)  # (achieved, commanded) m along the shift direction
         self.residual = math.nan  # largest steering residual norm during a steered phase (m/s)
         self.first_elevation = math.nan  # rad; roller contact normals above level at the first touch (surface draw-in)
+        self.straddle_rate = math.nan  # closing fraction per s while the rollers close on the object (surface draw-in)
 
     # --- scene -----------------------------------------------------------------------------
 

@@ -26,6 +26,7 @@ __all__ = ["build_report", "SECTIONS", "Report", "OUTCOME_STYLE", "worst_trials"
 
 SECTIONS = {"run": "Run", "errors": "Trials that failed to run", "outcomes": "Outcomes", "success": "Success rate by variant and object",
             "metrics": "Slip and drift per variant", "difficulty": "Object difficulty",
+            "envelope": "Pick envelope: surface draw-in",
             "regression": "Regression against the baseline", "worst": "Worst trials", "safety": "Safety"}
 # outcome -> (fill colour, hatch); the fills differ in lightness as well as hue, hatching tells them apart in print
 OUTCOME_STYLE = {"held": ("#23395d", ""), "dropped": ("#f2b134", "//"), "missed": ("#d4d4d4", ".."),
@@ -82,6 +83,9 @@ def build_report(run, out, against=None, worst=2, campaign_file=None) -> Report:
     page.section("success", _heat_maps(page, df, numerics_flags(run)))
     page.section("metrics", _distributions(page, df))
     page.section("difficulty", _difficulty(page, df))
+    from ..campaigns.envelope import POINTS_CSV
+    if (run / POINTS_CSV).exists():  # `grasp-harness envelope SPEC --out RUN` wrote one into the run
+        page.section("envelope", _envelope(page, run / POINTS_CSV))
     if against is not None:
         page.section("regression", _regression(page, load_run(Path(against)), df, against))
     replays = []
@@ -406,6 +410,20 @@ def _difficulty(page, df):
 # --- regression -----------------------------------------------------------------------------------
 
 VERDICT_SIGN = {"worse": "▼ worse", "better": "▲ better"}
+
+
+def _envelope(page, path):
+    import pandas as pd
+
+    from ..campaigns.envelope import boundary
+    from .envelope import boundary_rows, envelope_figure
+    df = pd.read_csv(path)
+    edge = boundary(df)
+    variant = df["variant"].dropna().iloc[0] if "variant" in df and df["variant"].notna().any() else "?"
+    caption = (f"{path.name}: {len(df)} surface-draw-in trials of {variant} "
+               f"({df['solver_iterations'].iloc[0]} it @ {df['step_hz'].iloc[0]} Hz); line: the rigid bite "
+               "boundary mu = tan(beta) (rolling-mill angle of bite), steps: the measured boundary")
+    return page.figure(envelope_figure(df, edge), caption) + _table(boundary_rows(edge))
 
 
 def _regression(page, base, cand, against, margin=0.05, alpha=0.05):

@@ -1,0 +1,43 @@
+"""The bite condition of driven rollers drawing a part off the work surface: the least roller-part
+friction coefficient with which a pair of rollers resting on the surface lifts a part into the hand.
+
+Rolling-mill theory (G. E. Dieter, Mechanical Metallurgy, chapter on the rolling of metals; S.
+Kalpakjian and S. R. Schmid, Manufacturing Engineering and Technology, chapter on rolling): two
+counter-rotating rolls draw a body into their gap unaided only when mu >= tan(alpha), alpha the angle
+between the contact normal and the line of the roll centres. On a surface the line of the roll
+centres is level (both rollers touch it), so alpha is the angle of the contact normal below level:
+
+- a lying cylinder of radius R between rollers of radius r: the line of centres rises from the part
+  to the roller by r - R over a length r + R, sin(beta) = (r - R) / (r + R);
+- a plate or disc edge of height h < r meets the roller at theta from its lowest point,
+  cos(theta) = (r - h) / r, its normal beta = 90 deg - theta below level: mu > cot(theta).
+
+Rigid contact, weight small against the squeeze; tests/test_surface_bite.py derives the correction
+for weight and roller-surface friction.
+"""
+
+from __future__ import annotations
+
+import math
+
+__all__ = ["SHAPES", "bite_angle", "required_mu"]
+
+SHAPES = ("cylinder", "disc", "plate")  # lying cylinder; standing disc and plate (an edge of height h)
+
+
+def bite_angle(shape, roller_radius, height):
+    """Angle (rad) of the roller-part contact normal below level for a part of `height` (m) resting
+    on the surface between rollers of `roller_radius` (m) that touch it; 0 when the part reaches
+    the roller centres (the rollers then squeeze it level or push it up)."""
+    r = roller_radius
+    if shape == "cylinder":
+        R = height / 2
+        return math.asin((r - R) / (r + R)) if R < r else 0.0
+    if shape in ("disc", "plate"):
+        return math.pi / 2 - math.acos((r - height) / r) if height < r else 0.0
+    raise ValueError(f"shape must be one of {', '.join(SHAPES)}; got {shape!r}")
+
+
+def required_mu(shape, roller_radius, height):
+    """The least roller-part friction coefficient that draws the part in: tan of the bite angle."""
+    return math.tan(bite_angle(shape, roller_radius, height))
