@@ -87,6 +87,6 @@ def test_envelope_command_rejects_bad_input_before_any_trial(tmp_path, capsys, a
 
 
 def test_envelope_command_needs_a_hand_with_rollers(tmp_path, capsys):
-    jaw = SPEC.parent / "bench-jaw.toml"
+    jaw = SPEC.parent / "pad-jaw.toml"
     assert main(["envelope", str(jaw), "--out", str(tmp_path)]) == 2
     assert "needs driven rollers; the jaw family has none" in capsys.readouterr().err
