@@ -85,7 +85,7 @@ friction = 0.6
 
 BASES = {
     "duo": ("duo-roller.toml", MODELS / "grippers" / "duo-roller.toml"),
-    "tri": ("tri-roller.toml", MODELS / "grippers" / "tri-roller.toml"),
+    "tri": ("scissor-roller.toml", MODELS / "grippers" / "scissor-roller.toml"),
     "jaw": ("pad-jaw.toml", MODELS / "grippers" / "pad-jaw.toml"),
     "lab": ("lab-cell.toml", MODELS / "objects" / "lab-cell.toml"),
     "stress": ("stress.toml", MODELS / "objects" / "stress.toml"),
@@ -290,8 +290,8 @@ CASES = [
          fields=("finger.roller.friction",), says=("must be a number > 0 and <= 10; got nan",)),
     Case("inf_finger_length", "duo", (put("[finger]", "length_mm", "inf"),),
          fields=("finger.length_mm",), says=("must be a number > 0; got inf",)),
-    Case("pivot_upper_beyond_joint_range", "duo", (put("[finger.pivot]", "upper_deg", "120"),),
-         fields=("finger.pivot.upper_deg",), says=("must be a number >= -90 and <= 90; got 120",)),
+    Case("pivot_upper_beyond_joint_range", "duo", (put("[finger.pivot]", "upper_deg", "200"),),
+         fields=("finger.pivot.upper_deg",), says=("must be a number >= -180 and <= 180; got 200",)),
     Case("flex_lower_not_below_upper", "duo", (put("[finger.flex]", "lower_deg", "40"),),
          fields=("finger.flex.upper_deg",), says=("must be greater than lower_deg (40)",)),
     Case("finger_count_1", "duo", (put("[finger]", "count", "1"),),
@@ -299,7 +299,14 @@ CASES = [
     Case("finger_count_5", "duo", (put("[finger]", "count", "5"),),
          fields=("finger.count",), says=("must be a whole number >= 2 and <= 4; got 5",)),
     Case("angles_deg_length_mismatch", "tri", (put("[finger]", "angles_deg", "[0, 180]"),),
-         fields=("finger.angles_deg",), says=("must list one angle per finger (3); got 2",)),
+         fields=("finger.angles_deg",), says=("must list one angle per finger (4); got 2",)),
+    # bases 42 mm out, 20 deg apart: 14.6 mm between centres, under the 21.1 mm finger diagonal
+    Case("fingers_colliding_in_the_palm", "tri", (put("[finger]", "angles_deg", "[0, 20, 180, 230]"),),
+         fields=("finger.angles_deg",),
+         says=("fingers 0 and 1 (at 0 and 20 deg) collide in the palm: their bases are 14.6 mm apart, "
+               "less than 21.1 mm",)),
+    Case("placement_angle_beyond_a_turn", "tri", (put("[finger]", "angles_deg", "[0, 50, 180, 400]"),),
+         fields=("finger.angles_deg",), says=("must be a list of numbers >= -360 and <= 360",)),
     Case("jaw_stroke_longer_than_half_opening", "jaw", (put("[jaw]", "stroke_mm", "39"),),
          fields=("jaw.stroke_mm",), says=("must be at most half the opening (38 mm)",)),
     Case("pad_stiffness_without_damping", "jaw", (drop("[pad]", "damping_n_s_m"),),
@@ -535,7 +542,7 @@ def test_gripper_spec_reports_every_problem_in_one_error(tmp_path, capsys):
     text = spec.read_text()
     for edit in (put("[palm]", "thickness_mm", "0"),
                  put("[finger]", "count", "5"),
-                 put("[finger.pivot]", "upper_deg", "120"),
+                 put("[finger.pivot]", "upper_deg", "200"),
                  rename("[finger.roller]", "width_mm", "widht_mm"),
                  put("[finger.pad]", "friction", "nan"),
                  put("[sweep]", "finger.roller.diameter_mm", "[20, 24]"),
@@ -545,7 +552,7 @@ def test_gripper_spec_reports_every_problem_in_one_error(tmp_path, capsys):
     expected = {
         "palm.thickness_mm": "must be a number > 0; got 0",
         "finger.count": "must be a whole number >= 2 and <= 4; got 5",
-        "finger.pivot.upper_deg": "must be a number >= -90 and <= 90; got 120",
+        "finger.pivot.upper_deg": "must be a number >= -180 and <= 180; got 200",
         "finger.roller.widht_mm": "is not a known key; did you mean 'width_mm'?",
         "finger.roller.width_mm": "is missing; it must be a number > 0",
         "finger.pad.friction": "got nan",

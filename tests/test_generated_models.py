@@ -34,7 +34,7 @@ from harness.models.specs import load_any
 ROOT = Path(__file__).resolve().parents[1]
 GRIPPER_DIR = ROOT / "models" / "grippers"
 OBJECT_DIR = ROOT / "models" / "objects"
-GRIPPER_FILES = ("duo-roller.toml", "tri-roller.toml", "pad-jaw.toml")
+GRIPPER_FILES = ("duo-roller.toml", "scissor-roller.toml", "pad-jaw.toml")
 OBJECT_SET_FILES = ("lab-cell.toml", "stress.toml")
 LOAD_FLAGS = p.URDF_USE_INERTIA_FROM_FILE | p.URDF_USE_IMPLICIT_CYLINDER
 
@@ -403,17 +403,19 @@ def roller_centres(cid, body, links, count):
     return [pt - base for pt in pts]
 
 
-def test_tri_roller_rollers_120_degrees_apart(sim, tmp_path):
-    key = sorted(k for k in roller_cases() if k.startswith("tri-roller"))[0]
+def test_scissor_roller_pairs_face_each_other_on_planes_crossed_at_50_degrees(sim, tmp_path):
+    key = sorted(k for k in roller_cases() if k.startswith("scissor-roller"))[0]
     _, _, model = gripper_cases()[key]
     body = load_model(sim, model, tmp_path)
-    centres = roller_centres(sim, body, pb_links(sim, body), 3)
-    angles = sorted(math.degrees(math.atan2(c[1], c[0])) % 360 for c in centres)
-    gaps = np.diff(angles + [angles[0] + 360])
-    np.testing.assert_allclose(gaps, [120, 120, 120], atol=1e-4)
+    centres = roller_centres(sim, body, pb_links(sim, body), 4)
+    angles = [math.degrees(math.atan2(c[1], c[0])) % 360 for c in centres]
+    np.testing.assert_allclose(angles, [0, 50, 180, 230], atol=1e-4)
     radii = [math.hypot(c[0], c[1]) for c in centres]
-    assert radii == pytest.approx([radii[0]] * 3, abs=PB_POSITION)
-    assert [c[2] for c in centres] == pytest.approx([centres[0][2]] * 3, abs=PB_POSITION)  # one height
+    assert radii == pytest.approx([radii[0]] * 4, abs=PB_POSITION)
+    assert [c[2] for c in centres] == pytest.approx([centres[0][2]] * 4, abs=PB_POSITION)  # one height
+    # each pair is opposed: its two rollers on one line through the hand axis
+    for i, j in ((0, 2), (1, 3)):
+        np.testing.assert_allclose(centres[i][:2] + centres[j][:2], [0, 0], atol=PB_POSITION)
 
 
 @pytest.mark.parametrize("key", roller_cases())

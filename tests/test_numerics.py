@@ -117,7 +117,7 @@ def test_a_static_grasp_holds_still_and_its_braked_rollers_do_not_creep(obj):
 
 
 def test_a_held_mesh_object_slips_no_more_than_it_moves_against_the_touching_links():
-    # The concave rack clip (a convex decomposition) held by a tri-roller: the slip at a contact is
+    # The concave rack clip (a convex decomposition) held by a scissor-roller: the slip at a contact is
     # the relative speed of the two material points there, which cannot exceed the speed of the
     # object's motion relative to the touching link at the contact's lever arm (triangle
     # inequality: |v + w x r| <= |v| + |w| |r|, r at most the object's bounding radius). Contact
@@ -147,7 +147,7 @@ def test_a_held_mesh_object_slips_no_more_than_it_moves_against_the_touching_lin
             last[link] = rel
         moved[0] += step
 
-    model = gripper("tri-roller", "tri-roller[finger.roller.friction=1.0]")
+    model = gripper("scissor-roller", "scissor-roller[finger.roller.friction=1.0]")
     row = observed_trial(model, object_set("stress")["rack-clip"], make_routine("draw-in-grasp"), each)
     assert row["outcome"] == "held", row["reason"]
     assert row["hold_slip_mm"] <= moved[0] * 1e3 + 0.05

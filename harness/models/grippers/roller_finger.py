@@ -2,8 +2,9 @@
 the fingertip roller's axis, and a continuously rotating, velocity-controlled roller.
 
 Hand frame: the palm face is the plane z = 0 and fingers point along +z (the approach
-direction). Finger i sits at angle a_i on a circle of `placement_radius`; in its own frame x
-points radially outward, y along the circle, z along the finger.
+direction). Finger i sits at angle a_i on a circle of `placement_radius` (any angles, e.g. two
+opposed pairs; bases that would overlap on the palm are refused); in its own frame x points
+radially outward, y along the circle, z along the finger. Joint ranges may span -180 to 180 deg.
 
 - flex joint (finger{i}_flex): axis -y at the palm face, so a positive angle swings the tip
   inward (closing).
@@ -42,8 +43,8 @@ class Palm:
 class Motor:
     """A position-controlled revolute joint: range, torque limit and speed limit."""
 
-    lower: float = param("lower_deg", unit="deg", ge=-90, le=90)
-    upper: float = param("upper_deg", unit="deg", ge=-90, le=90)
+    lower: float = param("lower_deg", unit="deg", ge=-180, le=180)
+    upper: float = param("upper_deg", unit="deg", ge=-180, le=180)
     torque: float = param("torque_nm", gt=0)
     speed: float = param("speed_deg_s", unit="deg", gt=0)
 
@@ -67,7 +68,7 @@ class Roller:
 @dataclass(frozen=True, kw_only=True)
 class Finger:
     count: int = param("count", "integer", ge=2, le=4)
-    angles: tuple[float, ...] | None = param("angles_deg", "numbers", unit="deg", default=None,
+    angles: tuple[float, ...] | None = param("angles_deg", "numbers", unit="deg", ge=-360, le=360, default=None,
                                              doc="placement angles on the palm; default evenly spaced")
     placement_radius: float = param("placement_radius_mm", unit="mm", gt=0)
     length: float = param("length_mm", unit="mm", gt=0)
@@ -95,6 +96,23 @@ class Finger:
                                       f"got {self.roller.width * 1e3:g}")
         if self.pad is not None and self.pad.length > self.length:
             yield "pad.length_mm", f"must not exceed the finger length ({self.length * 1e3:g} mm)"
+        if self.angles is not None and len(self.angles) == self.count:
+            yield from self._clear_of_each_other()
+
+    def _clear_of_each_other(self):
+        """Finger bases must not overlap on the palm: the bases' centres (on the placement circle)
+        stay at least the diagonal of a finger's cross-section apart (a conservative clearance)."""
+        need = math.hypot(self.width, self.thickness)
+        angles = self.placement_angles()
+        for i in range(self.count):
+            for j in range(i + 1, self.count):
+                apart = 2 * self.placement_radius * abs(math.sin((angles[i] - angles[j]) / 2))  # chord
+                if apart < need:
+                    yield "angles_deg", (
+                        f"fingers {i} and {j} (at {math.degrees(angles[i]):g} and {math.degrees(angles[j]):g} deg) "
+                        f"collide in the palm: their bases are {apart * 1e3:.1f} mm apart, less than "
+                        f"{need * 1e3:.1f} mm (the diagonal of a finger's width and thickness); place them "
+                        "further apart or raise placement_radius_mm")
 
     def placement_angles(self):
         if self.angles is not None:
