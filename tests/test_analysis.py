@@ -77,6 +77,9 @@ def test_summary_counts_invalid_and_error_but_excludes_them_from_rates():
 
 def test_summary_text_says_what_is_excluded():
     text = commands.summary_text(hand_table())
+    # Reference: the Wilson 95 % interval for 6 of 8 is [0.4093, 0.9285] (statsmodels
+    # proportion_confint(6, 8, method="wilson"), run when this literal was written; the summary test
+    # above compares against it live); printed to three decimals
     assert "0.750 [0.409, 0.929]" in text
     assert "1 invalid, 1 error, 0 timeout trial(s) are counted above but excluded from success rates" in text
 

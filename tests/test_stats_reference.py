@@ -204,7 +204,9 @@ def test_median_interval_covers_the_true_median():
 
 
 def test_median_se_is_close_to_its_asymptotic_value():
-    # Reference: the sample median of N(0, 1) has standard error sqrt(pi / (2 n)) (textbook result)
+    # Reference: the sample median of N(0, sigma^2) is asymptotically normal with variance
+    # 1 / (4 n f(0)^2) = pi sigma^2 / (2 n), f the normal density at the median (asymptotic
+    # distribution of sample quantiles, Cramer 1946, "Mathematical Methods of Statistics"; recalled from memory)
     rng = np.random.default_rng(2)
     x = rng.standard_normal(40000)
     assert S.median_se(x) == pytest.approx(np.sqrt(np.pi / (2 * x.size)), rel=0.05)

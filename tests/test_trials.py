@@ -141,9 +141,11 @@ def test_steering_residual_on_measured_contacts_of_a_held_ball():
 @pytest.mark.parametrize("mu", [0.05, 0.2])
 def test_slip_equals_the_true_surface_speed_when_friction_cannot_carry_the_load(mu):
     # A ball held fixed (an immovable load) between spinning rollers: nothing can move it, so each
-    # roller's surface slides past the ball at the roller's own speed times its radius (no-slip
-    # kinematics, w r, from the joint's measured speed, independent of the link velocities the
-    # slip metric uses). Measured: within 0.5 %; the issue asks for 10 %.
+    # roller's surface slides past the ball at the roller's own speed times its radius: the surface
+    # speed of a body turning at w about a fixed axis is w r (rigid-body kinematics, v = w x r;
+    # Meriam and Kraige, "Engineering Mechanics: Dynamics", rotation about a fixed axis; recalled
+    # from memory), taken from the joint's measured speed, independent of the link velocities the
+    # slip metric uses. Measured: within 0.5 %; the issue asks for 10 %.
     with open_world() as world:
         model = roller_hand(friction=mu)
         hand, ball = ball_between_rollers(world, model, one_object("sphere", radius_mm=20, mass_g=30, friction=mu),
