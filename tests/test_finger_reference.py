@@ -12,12 +12,12 @@ from harness.sim.world import PhysicsSettings, add_object
 
 
 @pytest.mark.parametrize("torque", [1.0, 2.5])
-def test_finger_presses_with_torque_over_lever(torque):
+def test_finger_presses_with_torque_over_lever(engine, torque):
     # Static equilibrium of a lever: a joint torque tau balanced by a contact force at perpendicular
     # distance L gives F = tau / L (any statics text, e.g. Meriam & Kraige, Statics, ch. 3).
     # Gravity off, so only the motor torque loads the contact; the block is fixed in space.
     model = roller_hand(flex={"torque_nm": torque})
-    with open_world(PhysicsSettings(gravity=0.0)) as w:
+    with open_world(PhysicsSettings(gravity=0.0, engine=engine)) as w:
         hand = Hand(w, model, (0, 0, 0.3))
         box = one_object("box", size_x_mm=40, size_y_mm=40, size_z_mm=40, mass_g=50, friction=1.0)
         block = add_object(w, box, (0, 0, 0.3 - 0.092), fixed=True)

@@ -8,13 +8,13 @@ from physics_scenes import on_incline, one_object
 
 from harness.sim.contact import sample_contacts
 from harness.sim.engines import open_world
-from harness.sim.world import pair_friction
+from harness.sim.world import PhysicsSettings, pair_friction
 
 
-def _slide(mu, tilt_deg, seconds=1.0):
+def _slide(engine, mu, tilt_deg, seconds=1.0):
     """Distance (m) a block slides along an incline in `seconds`, and its mean contact slip speed (m/s)."""
     block = one_object("box", size_x_mm=40, size_y_mm=40, size_z_mm=20, mass_g=200, friction=mu)
-    with open_world() as w:
+    with open_world(PhysicsSettings(engine=engine)) as w:
         body, downhill = on_incline(w, block, math.radians(tilt_deg), mu, lift=0.0101)
         w.step(round(0.1 / w.settings.time_step))  # settle the 0.1 mm drop
         start = w.pose(body)[0]
@@ -27,34 +27,45 @@ def _slide(mu, tilt_deg, seconds=1.0):
 
 
 @pytest.mark.parametrize("mu", [0.3, 0.5, 0.8])
-def test_block_on_incline_starts_sliding_at_atan_mu(mu):
+def test_block_on_incline_starts_sliding_at_atan_mu(engine, mu):
     # Coulomb friction: a block on an incline slides once tan(theta) > mu (any statics textbook,
     # e.g. Meriam & Kraige, Engineering Mechanics: Statics, ch. 6). Onset found by bisection on
     # "slid more than 1 mm in 1 s"; it must lie within 0.5 degree of atan(mu).
     onset = math.degrees(math.atan(mu))
     lo, hi = onset - 2.0, onset + 2.0
-    assert _slide(mu, lo)[0] < 1e-3 and _slide(mu, hi)[0] > 1e-3
+    assert _slide(engine, mu, lo)[0] < 1e-3 and _slide(engine, mu, hi)[0] > 1e-3
     for _ in range(7):
         mid = (lo + hi) / 2
-        lo, hi = (mid, hi) if _slide(mu, mid)[0] < 1e-3 else (lo, mid)
+        lo, hi = (mid, hi) if _slide(engine, mu, mid)[0] < 1e-3 else (lo, mid)
     assert abs((lo + hi) / 2 - onset) < 0.5
 
 
-def test_incline_slip_metric_zero_below_and_equals_sliding_speed_above():
+def test_incline_slip_metric_is_zero_while_the_block_sticks(engine):
     mu = 0.5
-    onset = math.degrees(math.atan(mu))
-    moved, slip = _slide(mu, onset - 1.5)
+    moved, slip = _slide(engine, mu, math.degrees(math.atan(mu)) - 1.5)
     assert moved < 1e-4 and slip < 1e-3  # sticking: under 1 mm/s of measured slip
-    moved, slip = _slide(mu, onset + 3.0)
+
+
+# MuJoCo's convex contact model lets a sliding contact separate at about mu x its slip speed: the
+# block hops, touching the incline in about one step of five (DEVELOPERS.md, Engines), so the
+# per-step slip reads low there. Kept as a strict expected failure so a change that fixes it shows.
+MUJOCO_HOPS = pytest.mark.xfail(strict=True, reason="MuJoCo: a sliding block touches in ~1 step of 5")
+
+
+def test_incline_slip_metric_equals_the_sliding_speed(engine, request):
+    if engine == "mujoco":
+        request.applymarker(MUJOCO_HOPS)
+    mu = 0.5
+    moved, slip = _slide(engine, mu, math.degrees(math.atan(mu)) + 3.0)
     assert moved > 0.01
     # the block does not rotate, so its mean slip speed is its mean sliding speed
     assert slip == pytest.approx(moved / 1.0, rel=0.05)
 
 
-def _roll(mu, tilt_deg):
+def _roll(engine, mu, tilt_deg):
     """Acceleration (m/s^2) of a 20 mm ball along an incline, fitted over 1 s, and its peak slip speed."""
     ball = one_object("sphere", radius_mm=20, mass_g=100, friction=mu)
-    with open_world() as w:
+    with open_world(PhysicsSettings(engine=engine)) as w:
         body, downhill = on_incline(w, ball, math.radians(tilt_deg), mu, lift=0.02)
         w.step(round(0.1 / w.settings.time_step))  # settle the drop (0.1 s)
         times, travel, slips = [], [], []
@@ -68,20 +79,20 @@ def _roll(mu, tilt_deg):
 
 
 @pytest.mark.parametrize("tilt_deg", [10.0, 20.0])
-def test_sphere_rolls_down_incline_at_five_sevenths_g_sin_theta(tilt_deg):
+def test_sphere_rolls_down_incline_at_five_sevenths_g_sin_theta(engine, tilt_deg):
     # A solid sphere rolling without slipping accelerates at (5/7) g sin(theta)
     # (I = 2/5 m r^2; e.g. Goldstein, Classical Mechanics; recalled from memory).
-    accel, peak_slip = _roll(0.8, tilt_deg)
+    accel, peak_slip = _roll(engine, 0.8, tilt_deg)
     assert accel == pytest.approx(5 / 7 * 9.81 * math.sin(math.radians(tilt_deg)), rel=0.01)
     assert peak_slip < 1e-3  # rolling: the contact point is at rest (under 1 mm/s)
 
 
-def test_sphere_slips_when_friction_is_too_low_to_roll():
+def test_sphere_slips_when_friction_is_too_low_to_roll(engine):
     # Rolling needs mu >= (2/7) tan(theta); with tan(theta) > 3.5 mu the ball must slide
     # (same textbook result). Sliding acceleration is then g (sin - mu cos) at the start.
     mu, tilt = 0.05, 30.0
     assert math.tan(math.radians(tilt)) > 3.5 * mu
-    accel, peak_slip = _roll(mu, tilt)
+    accel, peak_slip = _roll(engine, mu, tilt)
     assert accel > 5 / 7 * 9.81 * math.sin(math.radians(tilt)) * 1.1
     assert peak_slip > 0.5  # m/s: plainly slipping
 

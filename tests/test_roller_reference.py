@@ -12,13 +12,13 @@ R_ROLLER = 0.012  # m, the duo-roller demo's middle sweep value
 
 
 @pytest.mark.parametrize("speed", [2.0, 4.0])
-def test_two_counter_rotating_rollers_draw_a_ball_in_at_w_r(speed):
+def test_two_counter_rotating_rollers_draw_a_ball_in_at_w_r(engine, speed):
     # No-slip rolling: a roller of radius r spinning at w moves its surface at w r; a ball pinched
     # symmetrically between two such rollers translates at w r relative to the roller centres while
     # the contact normals are square to the motion (rolling kinematics, e.g. Murray, Li and Sastry
     # 1994, ch. 5). Gravity off so the motor torque is not loaded by the ball's weight; strong roller
     # motors so they hold their commanded speed.
-    with open_world(PhysicsSettings(gravity=0.0)) as w:
+    with open_world(PhysicsSettings(gravity=0.0, engine=engine)) as w:
         hand, ball = ball_between_rollers(w, roller_hand(torque_nm=3.0), one_object("sphere", radius_mm=20, mass_g=30, friction=1.0))
         rollers = [hand.link_of[f"finger{i}_roller"] for i in range(2)]
         hand.set_rollers(speed)
