@@ -52,13 +52,15 @@ def test_measured_boundary_of_lying_cylinders_lies_in_the_band(settings, heights
         assert b.mu_from == pytest.approx(BAND[1] * b.required_mu), f"{b.height_mm} mm not drawn in above the band"
 
 
-def test_boundary_takes_the_lowest_mu_from_which_every_higher_one_draws_in():
-    df = pd.DataFrame({"shape": "disc", "height_mm": 5.0, "required_mu": 0.6, "mu": [0.2, 0.4, 0.6, 0.8, 1.0],
-                       "drawn_in": [True, False, False, True, True]})
+def test_boundary_is_the_lowest_mu_drawing_in_with_the_next_one_and_counts_misses_above():
+    df = pd.DataFrame({"shape": "disc", "height_mm": 5.0, "required_mu": 0.6, "mu": [0.2, 0.4, 0.6, 0.8, 1.0, 1.2],
+                       "drawn_in": [True, False, False, True, True, False]})
     b = boundary(df).iloc[0]
-    assert (b.mu_below, b.mu_from, b.measured_mu) == (0.6, 0.8, pytest.approx(0.7))
+    assert (b.mu_below, b.mu_from, b.measured_mu, b.misses_above) == (0.6, 0.8, pytest.approx(0.7), 1)
     never = boundary(df.assign(drawn_in=False)).iloc[0]
-    assert math.isnan(never.mu_from) and math.isnan(never.measured_mu) and never.mu_below == 1.0
+    assert math.isnan(never.mu_from) and math.isnan(never.measured_mu) and never.mu_below == 1.2
+    top_only = boundary(df.assign(drawn_in=[False] * 5 + [True])).iloc[0]
+    assert (top_only.mu_from, top_only.mu_below) == (1.2, 1.0)
 
 
 def test_envelope_command_writes_points_boundary_and_chart(tmp_path, capsys):

@@ -125,20 +125,28 @@ def sweep(spec, variant, shapes, heights, mus, settings, routine=None, workers=1
 
 
 def boundary(df):
-    """Measured bite boundary per (shape, height): `mu_from` the lowest mu of the grid from which
-    every higher mu drew the part in, `mu_below` the highest mu under it that did not (NaN where the
-    grid has none), `measured_mu` their midpoint, against the analytic `required_mu`."""
+    """Measured bite boundary per (shape, height): `mu_from` the lowest mu of the grid that drew the
+    part in with the next higher mu drawing it in too (or the highest mu), so one odd point does not
+    move it; `mu_below` the highest mu under it that did not (NaN where the grid has none);
+    `measured_mu` their midpoint; `misses_above` the points from `mu_from` up that did not draw the
+    part in; against the analytic `required_mu`."""
     import pandas as pd
     out = []
     for (shape, height), g in df.sort_values("mu").groupby(["shape", "height_mm"], sort=False):
         drawn = g["drawn_in"].to_numpy(bool)
         mus = g["mu"].to_numpy(float)
-        tail = len(drawn)
-        while tail > 0 and drawn[tail - 1]:
-            tail -= 1
-        mu_from = mus[tail] if tail < len(mus) else math.nan
-        mu_below = mus[tail - 1] if tail > 0 else math.nan
-        measured = (mu_from + mu_below) / 2 if tail > 0 else mu_from
+        last = len(drawn) - 1
+        start = next((i for i in range(len(drawn)) if drawn[i] and (i == last or drawn[i + 1])), None)
+        if start is None:
+            mu_from = measured = math.nan
+            below = [i for i in range(len(drawn))]
+        else:
+            mu_from = mus[start]
+            below = [i for i in range(start) if not drawn[i]]
+        mu_below = mus[below[-1]] if below else math.nan
+        if start is not None:
+            measured = (mu_from + mu_below) / 2 if below else mu_from
         out.append({"shape": shape, "height_mm": height, "required_mu": float(g["required_mu"].iloc[0]),
-                    "mu_below": mu_below, "mu_from": mu_from, "measured_mu": measured})
+                    "mu_below": mu_below, "mu_from": mu_from, "measured_mu": measured,
+                    "misses_above": 0 if start is None else int((~drawn[start:]).sum())})
     return pd.DataFrame(out).sort_values(["shape", "height_mm"]).reset_index(drop=True)

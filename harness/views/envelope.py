@@ -80,5 +80,6 @@ def boundary_rows(edge):
     def fmt(v):
         return "-" if v != v else f"{v:.2f}"
     return [{"shape": b.shape, "height_mm": f"{b.height_mm:.2f}", "analytic_mu": fmt(b.required_mu),
-             "drawn_in_from_mu": fmt(b.mu_from), "not_at_mu": fmt(b.mu_below), "measured_mu": fmt(b.measured_mu)}
+             "drawn_in_from_mu": fmt(b.mu_from), "not_at_mu": fmt(b.mu_below), "measured_mu": fmt(b.measured_mu),
+             "misses_above": b.misses_above}
             for b in edge.itertuples()]
