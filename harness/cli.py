@@ -6,6 +6,7 @@ import argparse
 import sys
 
 from . import __version__
+from .constants import ENGINES
 from .safety import SAFETY
 
 def _parser():
@@ -35,6 +36,7 @@ def _parser():
     t.add_argument("--physics", action="append", default=[], metavar="KEY=VALUE",
                    help="engine numerics as in a campaign's [physics] table, e.g. --physics solver_iterations=400 "
                         "--physics step_hz=480 (default: the campaign defaults)")
+    t.add_argument("--engine", choices=ENGINES, help="physics engine (default pybullet; same as --physics engine=...)")
     t.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                    help="a routine parameter in file units, e.g. --set angle_deg=450 (repeatable)")
     t.add_argument("--seed", type=int, default=0, help="trial seed (default 0)")
@@ -168,7 +170,10 @@ def cmd_try(args):
         if len(models) > 1:
             why = "the spec's own values" if model.name == spec.own else "the first of the sweep"
             print(f"variant: {model.name} ({why}; --variant picks another)", file=sys.stderr)
-    settings = physics_settings(_routine_table(args.physics, "--physics"), "--physics")
+    physics = _routine_table(args.physics, "--physics")
+    if args.engine:
+        physics["engine"] = args.engine
+    settings = physics_settings(physics, "--physics")
     instance = _named(generate(load_any(args.objects)), args.object, "--object", args.objects)
     routine = make_routine(args.routine, _routine_table(args.set), file="--set", prefix="")
     problem = routine.unsuitable(model, instance)

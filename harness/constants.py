@@ -39,3 +39,5 @@ GYRATION_FLOOR = 0.05
 # A centre of mass outside the collision geometry's bounding box by more than this share of the
 # box's diagonal cannot belong to that geometry.
 COM_OUTSIDE_BOX = 0.01
+
+ENGINES = ("pybullet", "mujoco")  # physics engines a world can run on (harness/sim/engines.py)

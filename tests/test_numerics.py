@@ -217,3 +217,13 @@ def test_agreement_leaves_out_trials_invalid_at_either_setting():
     outcome = ["held"] * 9 + ["invalid"]
     a = agreement(_table(success, np.ones(10), lambda i: "a", outcome), _table(success, np.ones(10), lambda i: "a"))
     assert a["pairs"] == 9 and a["dropped_invalid"] == 1
+
+
+def test_the_physics_table_names_its_engine_and_refuses_unknown_ones():
+    from harness.campaigns.campaign import physics_settings
+    from harness.errors import SpecError
+    assert physics_settings({}).engine == "pybullet"
+    assert "engine" not in PhysicsSettings().record()  # runs made before the choice keep their hashes
+    with pytest.raises(SpecError) as err:
+        physics_settings({"engine": "bullet"}, "c.toml")
+    assert "engine" in str(err.value) and "'pybullet'" in str(err.value) and "'mujoco'" in str(err.value)

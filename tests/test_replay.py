@@ -44,8 +44,9 @@ object = [{ name = "vial", kind = "cylinder", radius_mm = 9, height_mm = 50, mas
 """
 
 
-def tiny_run(folder: Path, workers=2):
-    """(run folder, campaign file) of the 8-trial campaign above, run with `workers` processes."""
+def tiny_run(folder: Path, workers=2, engine=None):
+    """(run folder, campaign file) of the 8-trial campaign above, run with `workers` processes (on
+    `engine` instead of the campaign's)."""
     folder.mkdir(parents=True, exist_ok=True)
     shutil.copy(REPO / "models/grippers/duo-roller.toml", folder / "duo.toml")
     shutil.copy(REPO / "models/grippers/pad-jaw.toml", folder / "jaw.toml")
@@ -53,7 +54,8 @@ def tiny_run(folder: Path, workers=2):
     campaign = folder / "tiny.toml"
     campaign.write_text(CAMPAIGN)
     out = folder / "runs"
-    assert run_campaign(campaign, out=out, workers=workers, progress=False, echo=lambda *a, **k: None) == 0
+    assert run_campaign(campaign, out=out, workers=workers, progress=False, echo=lambda *a, **k: None,
+                        engine=engine) == 0
     (run,) = list(out.iterdir())
     return run, campaign
 
@@ -75,6 +77,24 @@ def test_replay_reproduces_the_journal_bit_for_bit_for_trials_run_on_two_workers
         assert result.differences == [], key
         assert result.matches
         assert result.row["outcome"] == df.loc[df["trial_key"] == key, "outcome"].item()
+
+
+def test_a_run_on_mujoco_names_its_engine_and_replays_bit_for_bit(tmp_path):
+    from harness.campaigns.runs import read_campaign
+    from harness.sim.engines import engine_available
+    if not engine_available("mujoco"):
+        pytest.skip("engine 'mujoco' is not installed (pip install -e '.[mujoco]')")
+    run, _ = tiny_run(tmp_path, engine="mujoco")
+    record = read_campaign(run)
+    assert record["engine"].startswith("mujoco ") and record["physics"]["engine"] == "mujoco"
+    df = load_run(run)
+    assert len(df) == 8 and set(df["engine"]) == {"mujoco"}
+    for key in df.groupby(["variant", "object"]).head(1)["trial_key"]:
+        result = replay(run, key)  # reloads the campaign with the run's engine
+        assert result.differences == [], key
+    # the same trial on the other engine is another simulation
+    other = replay(run, df["trial_key"].iloc[0], engine="pybullet")
+    assert other.row["engine"] == "pybullet" and ("engine", "mujoco", "pybullet") in other.differences
 
 
 def test_a_changed_bit_is_a_difference(run):

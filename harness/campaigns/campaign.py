@@ -28,7 +28,8 @@ from ..errors import SpecError
 from ..models.fields import Problems, Span, param, parse, section
 from ..seeds import rng_for
 from ..models.sources import inside, load_toml, normalised
-from ..sim.world import CONTROL_HZ, PhysicsSettings
+from ..sim.engines import engine_available
+from ..sim.world import CONTROL_HZ, ENGINES, PhysicsSettings
 
 __all__ = ["Campaign", "TrialTask", "Expansion", "load_campaign", "expand", "run_payload",
            "failure_inputs", "payload_settings", "physics_settings", "stable_hash", "PhysicsTable"]
@@ -90,14 +91,18 @@ class PhysicsTable:
                                    doc="constraint-solver iterations per physics step")
     step_hz: int = param("step_hz", "integer", ge=CONTROL_HZ, le=9600, default=PhysicsSettings.step_hz,
                          doc=f"physics steps per second, a multiple of the {CONTROL_HZ} Hz control rate")
+    engine: str = param("engine", "text", choices=ENGINES, default=PhysicsSettings.engine,
+                        doc="physics engine (DEVELOPERS.md, Engines); mujoco needs pip install -e '.[mujoco]'")
 
     def check(self):
+        if not engine_available(self.engine):
+            yield "engine", f"{self.engine!r} is not installed here: pip install -e '.[{self.engine}]'"
         if self.step_hz % CONTROL_HZ:
             yield "step_hz", (f"must be a multiple of the control rate {CONTROL_HZ} Hz (e.g. 240, 480, 960); "
                               f"got {self.step_hz}")
 
     def settings(self):
-        return PhysicsSettings(step_hz=self.step_hz, solver_iterations=self.solver_iterations)
+        return PhysicsSettings(step_hz=self.step_hz, solver_iterations=self.solver_iterations, engine=self.engine)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -202,8 +207,9 @@ def stable_hash(*parts) -> str:
     return hashlib.sha256(blob.encode()).hexdigest()[:16]
 
 
-def load_campaign(path) -> Campaign:
-    """Read and validate a campaign and everything it names; one SpecError lists every problem."""
+def load_campaign(path, engine=None) -> Campaign:
+    """Read and validate a campaign and everything it names; one SpecError lists every problem.
+    `engine` overrides the [physics] table's engine (`run --engine`; it is part of the campaign hash)."""
     path = Path(path)
     raw = load_toml(path)
     problems = Problems(path)
@@ -215,6 +221,8 @@ def load_campaign(path) -> Campaign:
     sets = _object_sets(base, top.objects if top else (), problems)
     problems.raise_if_any()
     physics = (top.physics or PhysicsTable()).settings()
+    if engine and engine != physics.engine:
+        physics = physics_settings({**(raw.get("physics") or {}), "engine": engine}, f"{path} (--engine)")
     return Campaign(path, top.name, top.description, top.seed, top.trials, top.timeout_s, grippers, sets,
                     routines, top.perturbation or PerturbationRanges(), top.stop, physics, raw,
                     top.detect_drop)

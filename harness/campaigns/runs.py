@@ -21,7 +21,7 @@ __all__ = ["CAMPAIGN_NAME", "STRING_COLUMNS", "FLOAT_COLUMNS", "EXPORTS", "new_r
 CAMPAIGN_NAME = "campaign.json"
 EXPORTS = ("csv", "parquet")
 STRING_COLUMNS = ("trial_key", "pair_key", "gripper", "variant", "variant_key", "family", "object",
-                  "object_set", "kind", "routine", "outcome", "reason", "failed_phase", "error")
+                  "object_set", "kind", "routine", "outcome", "reason", "failed_phase", "error", "engine")
 INT_COLUMNS = ("seed", "trial", "plan_index")
 # the metrics every analysis reads; always present (NaN for trials that gave none)
 FLOAT_COLUMNS = ("slip_mm", "slip_peak_mm_s", "drift_mm", "drift_deg", "epsilon", "wall_s")
@@ -49,7 +49,7 @@ def environment() -> dict:
 
     from .. import __version__
     libs = {}
-    for dist in ("pybullet", "numpy", "pandas", "scipy", "trimesh", "tqdm"):
+    for dist in ("pybullet", "mujoco", "numpy", "pandas", "scipy", "trimesh", "tqdm"):
         try:
             libs[dist] = metadata.version(dist)
         except metadata.PackageNotFoundError:
@@ -102,7 +102,7 @@ def run_campaign_of(run, campaign_file=None, why="the trials would differ"):
     if not file.is_file():
         raise HarnessError(f"the campaign file {file} that {run} was run from is not found (from {Path.cwd()}); "
                            "pass --campaign FILE")
-    campaign = load_campaign(file)
+    campaign = load_campaign(file, engine=record.get("physics", {}).get("engine"))  # as run (run --engine)
     if campaign.fingerprint() != record.get("campaign_hash"):
         raise HarnessError(f"{file} no longer resolves to the campaign {run} was run from (hash "
                            f"{campaign.fingerprint()}, run {record.get('campaign_hash')}); {why}")

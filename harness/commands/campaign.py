@@ -29,6 +29,8 @@ import sys
 import time
 from pathlib import Path
 
+from ..constants import ENGINES
+
 __all__ = ["register", "cmd_plan", "cmd_run", "cmd_export", "Scheduler", "run_campaign", "ERRORED", "ERROR_SHARE"]
 
 INTERRUPTED = 130
@@ -61,6 +63,8 @@ def register(subparsers):
                    help="local process pool (default) or a dask.distributed cluster")
     r.add_argument("--scheduler", metavar="ADDR", help="dask scheduler address (default: a local cluster)")
     r.add_argument("--hours", type=float, metavar="H", help="time budget; overrides the campaign's [stop] hours")
+    r.add_argument("--engine", choices=ENGINES, help="physics engine; overrides the campaign's [physics] engine "
+                                                     "(the run records it, and resumes and reloads with it)")
     r.add_argument("--crosscheck", type=float, metavar="FRACTION",
                    help="at the end, re-run this share of each cell's trials under finer numerics and flag "
                         "numerics-sensitive cells (see `grasp-harness crosscheck`)")
@@ -258,12 +262,13 @@ def _cell(d):
 def cmd_run(args):
     return _bad_input(lambda: run_campaign(
         args.campaign, workers=args.workers, resume=args.resume, out=args.out, executor=args.executor,
+        engine=args.engine,
         scheduler=args.scheduler, hours=args.hours, against=getattr(args, "against", None),
         crosscheck=args.crosscheck))
 
 
 def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", executor="local", scheduler=None,
-                 hours=None, progress=True, echo=print, against=None, crosscheck=None):
+                 hours=None, progress=True, echo=print, against=None, crosscheck=None, engine=None):
     """Run (or resume) a campaign; returns the exit code (0 done, 130 interrupted, ERRORED when more than
     ERROR_SHARE of the recorded trials ended in error or timeout).
 
@@ -280,8 +285,9 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
     from ..errors import HarnessError
     from ..campaigns.journal import EVENTS_NAME, EventLog, Journal
     from ..campaigns.runs import environment, load_run, new_run_folder, read_campaign, write_campaign
+    from ..sim.engines import engine_version
     from ..campaigns.executors import run_tasks
-    campaign = load_campaign(campaign_file)  # a malformed campaign stops here: no run folder
+    campaign = load_campaign(campaign_file, engine)  # a malformed campaign stops here: no run folder
     plan = expand(campaign)
     resolved = campaign.resolved()
     gate = _gate(campaign, plan, against) if against else None  # bad input stops before any run folder
@@ -296,7 +302,7 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
         folder = new_run_folder(out, campaign.name)
         write_campaign(folder, {**resolved, "planned_trials": len(plan.tasks), "skipped_trials": plan.skipped,
                                 "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-                                "environment": environment()})
+                                "engine": engine_version(campaign.physics.engine), "environment": environment()})
     stop = campaign.stop
     hours = hours if hours is not None else (stop.hours if stop else None)
     payloads = {t.trial_key: t.payload for t in plan.tasks}

@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import sys
 
+from ..constants import ENGINES
+
 __all__ = ["register", "cmd_report", "cmd_replay"]
 
 SHOWN_DIFFERENCES = 12  # columns listed when a replay does not match
@@ -44,6 +46,8 @@ def register(subparsers):
     p.add_argument("--every", type=int, metavar="N",
                    help="render every N-th sample of the trial (default: about 30 frames per simulated second)")
     p.add_argument("--size", default="480x360", metavar="WxH", help="frame size in pixels (default 480x360)")
+    p.add_argument("--engine", choices=ENGINES, help="re-simulate on this physics engine instead of the run's "
+                                                     "(the rows then differ; frames need pybullet)")
 
 
 def _command(subparsers, name, summary, description):
@@ -87,7 +91,7 @@ def cmd_replay(args):
         from ..views.replay import IGNORED_COLUMNS, replay
         width, height = _size(args.size)
         result = replay(args.run, args.trial_key, frames=args.frames, gif=args.gif, every=args.every,
-                        width=width, height=height, campaign_file=args.campaign)
+                        width=width, height=height, campaign_file=args.campaign, engine=args.engine)
         source = result.source
         print(f"trial {source.task.trial_key}: {source.title()}, seed {source.payload['seed']}; "
               f"outcome {result.row.get('outcome')}")

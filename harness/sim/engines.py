@@ -5,7 +5,7 @@ from __future__ import annotations
 from ..errors import HarnessError
 from .world import ENGINES, PhysicsSettings, World
 
-__all__ = ["open_world", "engine_available", "ENGINES"]
+__all__ = ["open_world", "engine_available", "engine_version", "ENGINES"]
 
 
 def open_world(settings: PhysicsSettings = PhysicsSettings()) -> World:
@@ -18,6 +18,15 @@ def open_world(settings: PhysicsSettings = PhysicsSettings()) -> World:
         from .mujoco_world import MujocoWorld
         return MujocoWorld(settings)
     raise HarnessError(f"unknown physics engine {settings.engine!r}; allowed: {', '.join(ENGINES)}")
+
+
+def engine_version(engine):
+    """"name version" of an engine's installed package, for the run record."""
+    from importlib import metadata
+    try:
+        return f"{engine} {metadata.version(engine)}"
+    except metadata.PackageNotFoundError:
+        return f"{engine} (not installed)"
 
 
 def engine_available(engine):

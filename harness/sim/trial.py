@@ -412,6 +412,7 @@ def run_trial(model, instance, routine, perturbation=Perturbation(), seed=0, set
         "variant_key": model.key, "family": model.family, "object": instance.name,
         "object_set": instance.set_name, "kind": instance.kind, "seed": int(seed),
         "solver_iterations": world.settings.solver_iterations, "step_hz": world.settings.step_hz,
+        "engine": world.settings.engine,
         **perturbation.columns(), "wall_s": time.perf_counter() - started,
     })
     return row

@@ -25,14 +25,13 @@ from pathlib import Path
 
 import numpy as np
 
-from ..constants import GRAVITY
+from ..constants import ENGINES, GRAVITY
 
 __all__ = ["CONTROL_HZ", "ENGINES", "PhysicsSettings", "World", "JointInfo", "pair_friction", "model_cache",
            "add_object"]
 
 
 CONTROL_HZ = 60  # Hz; the controller and the metrics run at this servo rate whatever the physics step
-ENGINES = ("pybullet", "mujoco")  # physics engines a world can run on
 
 
 @dataclass(frozen=True)
@@ -67,7 +66,12 @@ class PhysicsSettings:
         return f"{self.solver_iterations} it @ {self.step_hz} Hz{engine}"
 
     def record(self):
-        return asdict(self)
+        """The settings as recorded in runs and payloads; the default engine is left out, so runs made
+        before there was a choice keep their campaign hashes."""
+        out = asdict(self)
+        if self.engine == "pybullet":
+            out.pop("engine")
+        return out
 
 
 def pair_friction(mu_a, mu_b):

@@ -69,12 +69,17 @@ def replay_command(run, trial_key, *extra):
     return " ".join(["grasp-harness", "replay", shlex.quote(str(run)), trial_key, *map(shlex.quote, extra)])
 
 
-def open_trial(run, trial_key, campaign_file=None) -> TrialSource:
-    """The trial of `run` whose key is `trial_key` (or a unique prefix of it)."""
+def open_trial(run, trial_key, campaign_file=None, engine=None) -> TrialSource:
+    """The trial of `run` whose key is `trial_key` (or a unique prefix of it); `engine`: re-simulate it
+    on that engine instead of the run's."""
+    from dataclasses import replace
+
     from ..campaigns.journal import Journal
     from ..campaigns.runs import run_campaign_of
     run = Path(run)
     record, campaign = run_campaign_of(run, campaign_file, "a replay would test other models")
+    if engine:
+        campaign = replace(campaign, physics=replace(campaign.physics, engine=engine))
     task = find_task(campaign, trial_key)
     with Journal(run, create=False) as journal:
         logged = next((row for row in journal.rows() if row.get("trial_key") == task.trial_key), None)
@@ -423,12 +428,12 @@ class ReplayResult:
 
 
 def replay(run, trial_key, *, frames=None, gif=None, every=None, width=480, height=360, campaign_file=None,
-           source=None):
+           source=None, engine=None):
     """Replay a trial; write PNG frames to the folder `frames` and/or an animated GIF, and compare rows.
 
     `every`: render every n-th sample (observer call); default: about FRAME_RATE frames per simulated second.
     """
-    source = source or open_trial(run, trial_key, campaign_file)
+    source = source or open_trial(run, trial_key, campaign_file, engine)
     if frames is None and gif is None:
         row = simulate(source)
         return ReplayResult(source, row, _against_journal(source, row), None)
