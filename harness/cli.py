@@ -84,13 +84,28 @@ def _models(spec):
     from .models.objects import ObjectSet, generate
     if isinstance(spec, ObjectSet):
         return [(o.name, o.urdf, o.files, _object_row(o)) for o in generate(spec)]
-    return [(m.name, m.urdf, m.files, {"variant": m.name, "family": m.family, **m.summary})
+    return [(m.name, m.urdf, m.files, {"variant": m.name, "family": m.family, **m.summary, **_reach(m)})
             for m in build_models(spec)]
+
+
+def _reach(model):
+    """What a gripper reaches from geometry: its fingertips' lowest height over the table in an
+    approach from above, and for roller hands the lowest parts the rollers draw in off the surface
+    at a pair friction of 1 (rigid bite condition)."""
+    from .sim.bite import thinnest_part
+    from .sim.trial import TABLE_CLEARANCE
+    row = {"tip_reach_mm": TABLE_CLEARANCE * 1e3}
+    if model.roll_joints and model.roller_radius:
+        row["bite_at_mu1_mm"] = (f"lying {thinnest_part('cylinder', model.roller_radius, 1.0) * 1e3:.1f} / "
+                                 f"edge {thinnest_part('disc', model.roller_radius, 1.0) * 1e3:.1f}")
+    return row
 
 
 def _object_row(o):
     size = " x ".join(f"{e * 1e3:.1f}" for e in o.extents)
-    row = {"object": o.name, "kind": o.kind, "size_mm": size, "mass_g": round(o.mass * 1e3, 2),
+    from .sim.routines import rest_height
+    row = {"object": o.name, "kind": o.kind, "size_mm": size, "top_mm": round(rest_height(o) * 1e3, 1),
+           "mass_g": round(o.mass * 1e3, 2),
            "friction": round(o.friction, 3), "restitution": round(o.restitution, 3)}
     if o.sources:  # objects read from files: say where mass properties and material came from
         row["inertia_from"] = o.sources["inertia"]

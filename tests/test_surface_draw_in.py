@@ -74,3 +74,47 @@ def test_draw_in_grasp_reports_an_object_below_the_tips_reach_in_numbers():
     # adds its collision margin (1.5 mm at 240 Hz, 1.6 mm at 480 Hz, measured); the tips stop 3 mm
     # above the table (trial.TABLE_CLEARANCE)
     assert 1.2 <= top <= 1.7 and reach == 3.0
+
+
+# --- reach from geometry, before any trial (Routine.reach; plan and show print it) -----------------
+
+def test_reach_from_geometry_names_the_low_parts_each_routine_misses():
+    duo = own("duo-roller")
+    washer, slip, cap = objects("stress")["washer"], objects("stress")["cover-slip"], objects("lab-cell")["screw-cap-0"]
+    # the washer is 1.2 mm thick, the tips stop 3 mm over the table (trial.TABLE_CLEARANCE)
+    assert make_routine("draw-in-grasp").reach(duo, washer) == (
+        "object top 1.2 mm, lowest fingertip reach 3.0 mm (surface-draw-in picks parts this low)")
+    # a 1.5 mm edge against a 12 mm roller: cos(theta) = (12 - 1.5)/12, cot(theta) = 10.5/sqrt(12^2 - 10.5^2)
+    # = 1.81 (rolling-mill angle of bite; worked by hand); pair mu sqrt(1.0 x 0.35) = 0.59
+    assert make_routine("surface-draw-in").reach(duo, slip) == (
+        "object top 1.5 mm: 12 mm rollers on the surface meet its edge 61 deg below level, drawing in needs "
+        "mu > 1.81, the pair's mu is 0.59")
+    assert make_routine("surface-draw-in").reach(duo, cap) is None
+    assert make_routine("draw-in-grasp").reach(duo, cap) is None  # 10.6 mm tall: the tips reach it
+
+
+def test_plan_and_show_tell_reach_before_simulating(tmp_path, capsys):
+    from harness.cli import main
+    campaign = tmp_path / "c.toml"
+    campaign.write_text(f'''name = "reach"
+seed = 1
+trials = 1
+root = "{MODELS.parent}"
+objects = ["models/objects/stress.toml"]
+[[gripper]]
+spec = "models/grippers/duo-roller.toml"
+variants = ["duo-roller[finger.roller.radius_mm=12]"]
+[[routine]]
+name = "surface-draw-in"
+''')
+    assert main(["plan", str(campaign)]) == 0
+    out = capsys.readouterr().out
+    assert "cell(s) should miss from geometry alone" in out
+    assert ("surface-draw-in / duo-roller[finger.roller.radius_mm=12] / washer: object top 1.2 mm: 12 mm rollers "
+            "on the surface meet its edge 64 deg below level, drawing in needs mu > 2.06") in out
+    assert main(["show", str(MODELS / "grippers" / "duo-roller.toml")]) == 0
+    # at mu = 1 the bite angle is 45 deg: a lying cylinder from 2r (1 - sin 45)/(1 + sin 45) = 4.1 mm across,
+    # an edge from r (1 - sin 45) = 3.5 mm (r = 12 mm; worked by hand)
+    assert "lying 4.1 / edge 3.5" in capsys.readouterr().out
+    assert main(["show", str(MODELS / "objects" / "stress.toml")]) == 0
+    assert "top_mm" in capsys.readouterr().out

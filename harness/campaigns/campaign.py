@@ -357,6 +357,7 @@ class Expansion:
     tasks: tuple[TrialTask, ...]
     skipped: int  # trials of combinations the routine does not suit
     skipped_cells: tuple  # ((variant, object, routine, reason), ...)
+    short_reach: tuple = ()  # ((variant, object, routine, why), ...): cells geometry says should miss
 
     def cells(self):
         """{(variant, object_set, object, routine): number of trials}, in plan order."""
@@ -370,7 +371,7 @@ class Expansion:
 
 def expand(campaign: Campaign) -> Expansion:
     """Every suitable variant x object x routine x trial index, with stable keys and paired draws."""
-    tasks, skipped = [], []
+    tasks, skipped, short = [], [], []
     draws = {}  # pair_key -> (seed, perturbation): the same for every variant
     for spec, models in campaign.grippers:
         for model in models:
@@ -381,6 +382,9 @@ def expand(campaign: Campaign) -> Expansion:
                         if reason:
                             skipped.append((model.name, inst.name, use.routine.name, reason))
                             continue
+                        why = use.routine.reach(model, inst)
+                        if why:
+                            short.append((model.name, inst.name, use.routine.name, why))
                         for trial in range(campaign.trials):
                             pair_key = stable_hash(object_set.name, inst.name, use.routine.name,
                                                    normalised(use.routine.params), trial)
@@ -396,7 +400,7 @@ def expand(campaign: Campaign) -> Expansion:
                                 "object_set": object_set.name, "object": inst.name,
                                 "routine": use.routine.name, "routine_table": use.table,
                                 "perturbation": normalised(pert), "physics": campaign.physics.record()}))
-    return Expansion(tuple(tasks), len(skipped) * campaign.trials, tuple(skipped))
+    return Expansion(tuple(tasks), len(skipped) * campaign.trials, tuple(skipped), tuple(short))
 
 
 # --- workers -----------------------------------------------------------------------------------

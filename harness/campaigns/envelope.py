@@ -18,7 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..sim.bite import SHAPES, bite_angle, required_mu
+from ..sim.bite import SHAPES, bite_angle, required_mu, roller_friction
 
 __all__ = ["SHAPES", "EnvelopePoint", "default_heights", "DEFAULT_MU", "part", "run_point", "sweep", "boundary",
            "POINTS_CSV", "BOUNDARY_CSV", "CHART_PNG"]
@@ -61,14 +61,6 @@ def part(point: EnvelopePoint, roller_friction):
              "friction": point.mu ** 2 / roller_friction}  # pair: sqrt(roller mu x part mu) = mu
     raw = {"name": "envelope", "seed": 1, "object": [entry]}
     return generate(load_object_set("<envelope>", raw))[0]
-
-
-def roller_friction(model):
-    """The rollers' own friction coefficient: their surfaces' (roller-finger names them `*_roller`),
-    else the one every link of a urdf-family hand shares, else the engine's default 1."""
-    rollers = [s.friction for name, s in model.surfaces.items() if name.endswith("_roller")]
-    others = [s.friction for s in model.surfaces.values()]
-    return (rollers or others or [1.0])[0]
 
 
 def run_point(payload: dict) -> dict:

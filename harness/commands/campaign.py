@@ -109,6 +109,11 @@ def cmd_plan(args):
         reasons.setdefault((routine, reason), []).append(f"{variant} / {obj}")
     for (routine, reason), pairs in reasons.items():
         print(f"  {routine}: {reason} ({len(pairs)} combination(s))")
+    if plan.short_reach:
+        print(f"{len(plan.short_reach)} cell(s) should miss from geometry alone (object height against the "
+              "fingertips' reach or the rollers' bite condition; nothing simulated):")
+        for variant, obj, routine, why in plan.short_reach:
+            print(f"  {routine} / {variant} / {obj}: {why}")
     for line in power_lines(campaign, plan):
         print(line)
     if not plan.tasks:

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["SHAPES", "bite_angle", "required_mu"]
+__all__ = ["SHAPES", "bite_angle", "required_mu", "roller_friction", "thinnest_part"]
 
 SHAPES = ("cylinder", "disc", "plate")  # lying cylinder; standing disc and plate (an edge of height h)
 
@@ -41,3 +41,22 @@ def bite_angle(shape, roller_radius, height):
 def required_mu(shape, roller_radius, height):
     """The least roller-part friction coefficient that draws the part in: tan of the bite angle."""
     return math.tan(bite_angle(shape, roller_radius, height))
+
+
+def thinnest_part(shape, roller_radius, mu):
+    """The lowest part height (m) rollers of `roller_radius` (m) draw in at friction `mu`: the
+    height whose bite angle is atan(mu) (required_mu inverted)."""
+    s = math.sin(math.atan(mu))
+    if shape == "cylinder":
+        return 2 * roller_radius * (1 - s) / (1 + s)  # sin(beta) = (r - R)/(r + R)
+    if shape in ("disc", "plate"):
+        return roller_radius * (1 - s)  # cos(theta) = sin(beta) = (r - h)/r
+    raise ValueError(f"shape must be one of {', '.join(SHAPES)}; got {shape!r}")
+
+
+def roller_friction(model):
+    """The rollers' own friction coefficient: their surfaces' (roller-finger names them `*_roller`),
+    else the one every link of a urdf-family hand shares, else the engine's default 1."""
+    rollers = [s.friction for name, s in model.surfaces.items() if name.endswith("_roller")]
+    others = [s.friction for s in model.surfaces.values()]
+    return (rollers or others or [1.0])[0]

@@ -18,7 +18,7 @@ from .trial import APPROACH_CLEARANCE, TABLE_CLEARANCE, drift_of
 
 __all__ = ["approach", "inside_approach", "close", "spread", "draw_in", "lift", "hold", "shake", "pivot",
            "roll", "shift", "release", "roller_contacts", "cavity_radius", "STEER_RTOL",
-           "touch_down", "straddle", "climb", "contact_elevation"]
+           "touch_down", "straddle", "climb", "contact_elevation", "below_reach"]
 
 LOSS_TIME = 0.1  # s without any touch after the grasp: the object is gone
 STILL_SPEED = 0.002  # m/s (or rad/s for joints); below this a closing or drawing motion has stopped
@@ -115,6 +115,12 @@ def cavity_radius(instance):
     return d["inner_radius"] if instance.kind == "ring" else d["outer_radius"] - d["wall"]
 
 
+def below_reach(top):
+    """Why an approach from above misses an object whose top is `top` (m) over the table."""
+    return (f"object top {top * 1e3:.1f} mm, lowest fingertip reach {TABLE_CLEARANCE * 1e3:.1f} mm "
+            "(surface-draw-in picks parts this low)")
+
+
 def approach(ctx, p, log, target=_outside_target):
     """Come down from above onto the grasp pose, fingers open (or pre-shaped)."""
     lo, hi = ctx.world.aabb(ctx.obj)
@@ -122,8 +128,7 @@ def approach(ctx, p, log, target=_outside_target):
     if target is _outside_target and hi[2] - lo[2] <= TABLE_CLEARANCE:
         # the tips stop TABLE_CLEARANCE above the table: they would close over the object untouched
         # (judged on the object's own height: a soft body sunk into the table is a blow-up, not this)
-        log.note = (f"object top {top * 1e3:.1f} mm, lowest fingertip reach {TABLE_CLEARANCE * 1e3:.1f} mm "
-                    "(surface-draw-in picks parts this low)")
+        log.note = below_reach(top)
         return False
     goal = target(ctx, p)
     start = goal + [0.0, 0.0, APPROACH_CLEARANCE]

@@ -27,6 +27,7 @@ import numpy as np
 from ..models.fields import Problems, param, parse
 from .phases import (
     approach,
+    below_reach,
     climb,
     close,
     draw_in,
@@ -41,7 +42,9 @@ from .phases import (
     straddle,
     touch_down,
 )
-from .trial import EJECT_SPEED, STANDING_KINDS
+from .bite import bite_angle, required_mu, roller_friction
+from .trial import EJECT_SPEED, STANDING_KINDS, TABLE_CLEARANCE
+from .world import pair_friction
 
 __all__ = ["ROUTINES", "Routine", "make_routine"]
 
@@ -148,6 +151,26 @@ class Routine:
                     f"{model.opening * 1e3:.0f} mm")
         return None
 
+    def reach(self, model, instance):
+        """Why this routine should miss this object, from geometry alone (before any trial), in
+        numbers; None when geometry says nothing against it. The fingertips of an approach from
+        above stop trial.TABLE_CLEARANCE over the table; rollers drawing a part off the surface
+        need the bite condition (sim/bite.py) at the pair's nominal friction."""
+        first = self.phases[0][0]
+        height = rest_height(instance)
+        if first is approach and height <= TABLE_CLEARANCE:
+            return below_reach(height)
+        if first is touch_down and model.roller_radius:
+            shape = "disc" if instance.kind in STANDING_KINDS else "cylinder"  # an edge, or a round part lying
+            need = required_mu(shape, model.roller_radius, height)
+            mu = pair_friction(roller_friction(model), instance.friction)
+            if mu <= need:
+                edge = "its edge" if shape == "disc" else "it"
+                return (f"object top {height * 1e3:.1f} mm: {model.roller_radius * 1e3:.0f} mm rollers on the "
+                        f"surface meet {edge} {math.degrees(bite_angle(shape, model.roller_radius, height)):.0f} deg "
+                        f"below level, drawing in needs mu > {need:.2f}, the pair's mu is {mu:.2f}")
+        return None
+
     def labels(self):
         return [phase.__name__.replace("_", "-") for phase, _ in self.phases]
 
@@ -190,6 +213,12 @@ class Routine:
             row[f"{label}_drift_mm"] = drift[0] * 1e3
             row[f"{label}_drift_deg"] = math.degrees(drift[1])
         return row
+
+
+def rest_height(instance):
+    """Height (m) of an object's top as it rests on the table (trial.TrialContext places it):
+    standing kinds on their base, the others with their smallest size vertical."""
+    return float(instance.extents[2] if instance.kind in STANDING_KINDS else min(instance.extents))
 
 
 def grasp_width(instance):
