@@ -104,9 +104,9 @@ def test_a_run_at_poor_numerics_is_flagged_and_the_flags_reach_report_and_compar
     # the report frames flagged cells and lists them; compare names verdicts that rest on them
     report = build_report(run, tmp_path / "r.html", worst=0)
     html = report.path.read_text()
-    assert "Numerics-sensitive cells" in html
+    assert "numerics-sensitive: " in html
     assert main(["compare", str(run), str(run)]) in (0, 1)
-    assert "flagged numerics-sensitive" in capsys.readouterr().out
+    assert "flagged numerics- or engine-sensitive" in capsys.readouterr().out
 
 
 def test_a_run_at_the_default_physics_crosschecks_nearly_clean(tmp_path):
@@ -124,3 +124,33 @@ def test_a_run_at_the_default_physics_crosschecks_nearly_clean(tmp_path):
 def test_crosscheck_of_a_folder_that_is_no_run_is_one_clear_error(tmp_path, capsys):
     assert main(["crosscheck", str(tmp_path)]) == 2
     assert "is not a run folder" in capsys.readouterr().err
+
+
+def test_crosscheck_on_the_other_engine_flags_engine_sensitive_cells_apart_from_numerics(tmp_path, capsys):
+    from harness.analysis.numerics import ENGINE_CROSSCHECK_NAME, sensitive_flags
+    from harness.sim.engines import engine_available
+    if not engine_available("mujoco"):
+        pytest.skip("engine 'mujoco' is not installed (pip install -e '.[mujoco]')")
+    path = campaign(tmp_path, 2)
+    assert run_campaign(path, out=tmp_path / "runs", progress=False, echo=quiet, workers=2) == 0
+    (run,) = (tmp_path / "runs").iterdir()
+    lines = []
+    result = crosscheck(run, sample=1.0, engine="mujoco", workers=2, progress=False, echo=lines.append)
+    record = json.loads((run / ENGINE_CROSSCHECK_NAME).read_text())
+    assert not (run / CROSSCHECK_NAME).exists()  # the numerics crosscheck's file is its own
+    # same draws and numerics, the other engine
+    assert record["refined_settings"] == {**record["run_settings"], "engine": "mujoco"}
+    assert record["pairs"] == result["pairs"] == len(result["cells"]) * 2 - record["dropped_invalid"]
+    cells = result["cells"]
+    assert ((cells["agreement_lo"] <= cells["outcome_agreement"]) & (cells["outcome_agreement"] <= cells["agreement_hi"])).all()
+    assert {"slip_coarse_mm", "slip_fine_mm", "drift_coarse_mm", "drift_fine_mm"} <= set(cells.columns)
+    print("\n".join(lines))
+    assert any("engine-sensitive" in line for line in lines)
+    flags = sensitive_flags(run)
+    assert len(flags) == len(record["flagged"]) and all(w.startswith("engine-sensitive: ") for w in flags.values())
+    if flags:  # the report frames them and compare names the verdicts resting on them
+        assert "engine-sensitive: " in build_report(run, tmp_path / "r.html", worst=0).path.read_text()
+        assert main(["compare", str(run), str(run)]) in (0, 1)
+        assert "numerics- or engine-sensitive" in capsys.readouterr().out
+    with pytest.raises(Exception, match="ran on pybullet already"):
+        crosscheck(run, engine="pybullet", progress=False, echo=quiet)

@@ -32,8 +32,11 @@ from .stats import holm, mcnemar_exact_p, wilson_interval
 from .summary import CELL, NOT_VALID
 
 CROSSCHECK_NAME = "crosscheck.json"  # a run folder's crosscheck result and its flagged cells
+ENGINE_CROSSCHECK_NAME = "engine-crosscheck.json"  # the same against the other engine (crosscheck --engine)
+SENSITIVE = {"numerics": CROSSCHECK_NAME, "engine": ENGINE_CROSSCHECK_NAME}  # kind of flag -> its file
 
-__all__ = ["TOLERANCES", "agreement", "cell_agreement", "settled", "numerics_flags", "CROSSCHECK_NAME"]
+__all__ = ["TOLERANCES", "agreement", "cell_agreement", "settled", "numerics_flags", "sensitive_flags",
+           "CROSSCHECK_NAME", "ENGINE_CROSSCHECK_NAME", "SENSITIVE"]
 
 ALPHA = 0.05
 OVERALL_SHIFT = 0.02  # paired success difference, share of trials
@@ -98,7 +101,8 @@ def cell_agreement(coarse, fine):
                      "success_fine": g["success_f"].mean(), "only_coarse": only_c, "only_fine": only_f,
                      "p": float(mcnemar_exact_p(only_c, only_f)), "outcome_agreement": same / len(g),
                      "agreement_lo": float(lo), "agreement_hi": float(hi), "held_both": len(held),
-                     "slip_coarse_mm": _median(held["slip_mm_c"]), "slip_fine_mm": _median(held["slip_mm_f"])})
+                     "slip_coarse_mm": _median(held["slip_mm_c"]), "slip_fine_mm": _median(held["slip_mm_f"]),
+                     "drift_coarse_mm": _median(held["drift_mm_c"]), "drift_fine_mm": _median(held["drift_mm_f"])})
     out = pd.DataFrame(rows)
     out["p_holm"] = holm(out["p"].to_numpy())
     reasons = []
@@ -165,10 +169,21 @@ def settled(a):
     return why
 
 
-def numerics_flags(run):
-    """{(variant, object_set, object, routine): why} of a run's crosscheck (empty without one)."""
-    path = Path(run) / CROSSCHECK_NAME
+def numerics_flags(run, kind="numerics"):
+    """{(variant, object_set, object, routine): why} of a run's crosscheck of `kind` (SENSITIVE; empty
+    without one)."""
+    path = Path(run) / SENSITIVE[kind]
     if not path.is_file():
         return {}
     data = json.loads(path.read_text(encoding="utf-8"))
     return {(f["variant"], f["object_set"], f["object"], f["routine"]): f["why"] for f in data.get("flagged", [])}
+
+
+def sensitive_flags(run):
+    """{(variant, object_set, object, routine): why} of both kinds of crosscheck of a run, each reason
+    led by its kind ("numerics-sensitive: ...", "engine-sensitive: ...")."""
+    out = {}
+    for kind in SENSITIVE:
+        for cell, why in numerics_flags(run, kind).items():
+            out[cell] = "; ".join(filter(None, [out.get(cell), f"{kind}-sensitive: {why}"]))
+    return out

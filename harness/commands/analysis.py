@@ -95,13 +95,13 @@ def cmd_compare(args):
 
 
 def numerics_note(base, cand, args, runs):
-    """Lines naming the verdicts that rest on cells a crosscheck of either run flagged
-    numerics-sensitive (empty when neither run has flags)."""
-    from ..analysis.numerics import numerics_flags
+    """Lines naming the verdicts that rest on cells a crosscheck of either run flagged numerics- or
+    engine-sensitive (empty when neither run has flags)."""
+    from ..analysis.numerics import sensitive_flags
     from ..analysis import compare
     flags = {}
     for run in runs:
-        for (variant, _, obj, routine), why in numerics_flags(run).items():
+        for (variant, _, obj, routine), why in sensitive_flags(run).items():
             flags.setdefault((obj, routine), []).append(f"{variant}: {why}")
     if not flags:
         return ""
@@ -112,9 +112,11 @@ def numerics_note(base, cand, args, runs):
         hits = flags.get((r["object"], r["routine"]), [])
         verdict = r[GATES[args.gate][0]]
         if hits and verdict != NO_CHANGE:
+            kinds = " and ".join(k for k in ("numerics", "engine") if any(f"{k}-sensitive" in h for h in hits))
             lines.append(f"  {r['variant']} / {r['object']} / {r['routine']}: {args.gate} verdict '{verdict}' rests "
-                         f"on a numerics-sensitive cell ({'; '.join(hits)})")
-    head = f"\nCrosscheck: {sum(map(len, flags.values()))} cell(s) flagged numerics-sensitive in these runs"
+                         f"on a {kinds}-sensitive cell ({'; '.join(hits)})")
+    head = (f"\nCrosscheck: {sum(map(len, flags.values()))} cell(s) flagged numerics- or engine-sensitive in "
+            "these runs")
     return head + (":\n" + "\n".join(lines) if lines else "; no verdict rests on them.")
 
 

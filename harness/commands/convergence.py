@@ -13,6 +13,10 @@ tolerances):
   success rate or slip moved beyond tolerance as numerics-sensitive. The flags go to
   RUN/crosscheck.json; `report` marks them on the success map and `compare` names verdicts that
   rest on them. `run --crosscheck FRACTION` does it at the end of a campaign.
+- `crosscheck RUN --engine mujoco` re-runs the sample on the other physics engine at the run's own
+  numerics (unless --iterations / --step are given) and flags engine-sensitive cells in
+  RUN/engine-crosscheck.json the same way: a verdict that holds in two independently written
+  engines is evidence, one that flips is a property of a simulator.
 """
 
 from __future__ import annotations
@@ -22,6 +26,8 @@ import math
 import sys
 import time
 from pathlib import Path
+
+from ..constants import ENGINES
 
 __all__ = ["register", "stratified", "run_at", "converge", "crosscheck"]
 
@@ -52,8 +58,10 @@ def register(subparsers):
     x.add_argument("run", metavar="RUN")
     x.add_argument("--sample", type=float, default=0.25, metavar="FRACTION",
                    help="share of each cell's trials to re-run (default 0.25; at least one per cell)")
-    x.add_argument("--iterations", type=int, default=4, metavar="K", help="solver iterations x K (default 4)")
-    x.add_argument("--step", type=int, default=2, metavar="K", help="physics step / K (default 2)")
+    x.add_argument("--iterations", type=int, metavar="K", help="solver iterations x K (default 4; 1 with --engine)")
+    x.add_argument("--step", type=int, metavar="K", help="physics step / K (default 2; 1 with --engine)")
+    x.add_argument("--engine", choices=ENGINES, help="re-run on this physics engine instead and flag "
+                                                     "engine-sensitive cells (RUN/engine-crosscheck.json)")
     x.add_argument("--campaign", metavar="FILE", help="the run's campaign file, if it has moved")
     x.add_argument("--workers", type=int, metavar="N")
 
@@ -215,11 +223,15 @@ def _plot(table, path, ref):
 
 # --- crosscheck ----------------------------------------------------------------------------------
 
-def crosscheck(run, *, sample=0.25, iterations=4, step=2, campaign_file=None, workers=None, progress=True,
-               echo=print):
-    """Re-run a stratified sample of `run` under refined numerics; write RUN/crosscheck.json; return
-    the agreement dict (analysis.numerics.agreement)."""
-    from ..analysis.numerics import CROSSCHECK_NAME, TOLERANCES, agreement
+def crosscheck(run, *, sample=0.25, iterations=None, step=None, engine=None, campaign_file=None, workers=None,
+               progress=True, echo=print):
+    """Re-run a stratified sample of `run` under refined numerics (`iterations` x the solver
+    iterations, the step / `step`; defaults 4 and 2), or on `engine` (defaults 1 and 1); write
+    RUN/crosscheck.json (RUN/engine-crosscheck.json); return the agreement dict
+    (analysis.numerics.agreement)."""
+    from dataclasses import replace
+
+    from ..analysis.numerics import SENSITIVE, TOLERANCES, agreement
     from ..campaigns.campaign import expand, payload_settings
     from ..campaigns.runs import load_run, run_campaign_of
     run = Path(run)
@@ -230,10 +242,21 @@ def crosscheck(run, *, sample=0.25, iterations=4, step=2, campaign_file=None, wo
         from ..errors import HarnessError
         raise HarnessError(f"{run} has no recorded trial to crosscheck")
     base = payload_settings(tasks[0].payload)
+    kind = "engine" if engine else "numerics"
+    iterations, step = iterations or (1 if engine else 4), step or (1 if engine else 2)
     fine = base.refined(iterations, step)
+    if engine:
+        from ..errors import HarnessError
+        from ..sim.engines import engine_available
+        if engine == base.engine:
+            raise HarnessError(f"{run} ran on {engine} already; --engine names the other engine ({', '.join(ENGINES)})")
+        if not engine_available(engine):
+            raise HarnessError(f"engine {engine!r} is not installed here: pip install -e '.[{engine}]'")
+        fine = replace(fine, engine=engine)
     echo(f"Crosscheck of {run}: {len(tasks)} trial(s) at {fine.label()} against {base.label()}")
-    refined = run_at(tasks, fine, run / CROSSCHECK_FOLDER, record, workers=workers,
-                     timeout=campaign.timeout_s * iterations * step, progress=progress)
+    folder = run / (f"{CROSSCHECK_FOLDER}-{engine}" if engine else CROSSCHECK_FOLDER)
+    refined = run_at(tasks, fine, folder, record, workers=workers, timeout=campaign.timeout_s * iterations * step,
+                     progress=progress)
     a = agreement(done[done["trial_key"].isin(refined["trial_key"])], refined)
     cells = a.pop("cells")
     flagged = cells[cells["flagged"]]
@@ -242,14 +265,16 @@ def crosscheck(run, *, sample=0.25, iterations=4, step=2, campaign_file=None, wo
               "cells": json.loads(cells.to_json(orient="records")),
               "flagged": [{"variant": r.variant, "object_set": r.object_set, "object": r.object,
                            "routine": r.routine, "why": r.why} for r in flagged.itertuples()]}
-    (run / CROSSCHECK_NAME).write_text(json.dumps(result, indent=1, default=float), encoding="utf-8")
-    echo(f"Overall success {a['success_coarse']:.3f} (run) vs {a['success_fine']:.3f} (refined) over {a['pairs']} "
-         f"pair(s), McNemar p {a['p']:.2g}; {100 * a['flip_share']:.1f} % of trials flip (chaos).")
+    (run / SENSITIVE[kind]).write_text(json.dumps(result, indent=1, default=float), encoding="utf-8")
+    other = engine or "refined"
+    echo(f"Overall success {a['success_coarse']:.3f} (run) vs {a['success_fine']:.3f} ({other}) over {a['pairs']} "
+         f"pair(s), McNemar p {a['p']:.2g}; {100 * a['flip_share']:.1f} % of trials flip"
+         + (" (chaos)." if not engine else "."))
     echo(f"Median slip of trials held in both {a['slip_coarse_mm']:.3g} vs {a['slip_fine_mm']:.3g} mm; "
          f"drift {a['drift_coarse_mm']:.3g} vs {a['drift_fine_mm']:.3g} mm.")
     if a["failures"]:
         echo("Not settled: " + "; ".join(a["failures"]))
-    echo(f"{len(flagged)} of {len(cells)} cell(s) numerics-sensitive" + (":" if len(flagged) else "."))
+    echo(f"{len(flagged)} of {len(cells)} cell(s) {kind}-sensitive" + (":" if len(flagged) else "."))
     for r in flagged.itertuples():
         echo(f"  {r.variant} / {r.object} / {r.routine}: {r.why}")
     return {**a, "cells": cells}
@@ -271,7 +296,7 @@ def cmd_converge(args):
 def cmd_crosscheck(args):
     from ..errors import HarnessError
     try:
-        crosscheck(args.run, sample=args.sample, iterations=args.iterations, step=args.step,
+        crosscheck(args.run, sample=args.sample, iterations=args.iterations, step=args.step, engine=args.engine,
                    campaign_file=args.campaign, workers=args.workers)
     except HarnessError as exc:
         print(f"error: {exc}", file=sys.stderr)

@@ -79,8 +79,8 @@ def build_report(run, out, against=None, worst=2, campaign_file=None) -> Report:
     if errors:  # failures first: they limit what every later section can say
         page.section("errors", errors)
     page.section("outcomes", _outcomes(page, df))
-    from ..analysis.numerics import numerics_flags
-    page.section("success", _heat_maps(page, df, numerics_flags(run)))
+    from ..analysis.numerics import sensitive_flags
+    page.section("success", _heat_maps(page, df, sensitive_flags(run)))
     page.section("metrics", _distributions(page, df))
     page.section("difficulty", _difficulty(page, df))
     from ..campaigns.envelope import POINTS_CSV
@@ -243,7 +243,7 @@ def _outcomes(page, df):
 
 def _heat_maps(page, df, flags=None):
     """`flags`: {(variant, object_set, object, routine): why} of cells a crosscheck found
-    numerics-sensitive; they get a dashed red frame and are listed under the map."""
+    numerics- or engine-sensitive; they get a dashed red frame and are listed under the map."""
     from ..analysis import summary
     flags = flags or {}
     flagged_at = {(v, o, r) for v, _, o, r in flags}
@@ -286,12 +286,13 @@ def _heat_maps(page, df, flags=None):
     caption = ("Success rate per variant, object and routine: the large number is the rate over valid trials, "
                "the bracket its 95 % Wilson score interval and n the valid trials. Wide brackets mean few trials.")
     if flags:
-        caption += (f" Dashed red frames: {len(flags)} cell(s) whose results moved under finer numerics in the "
-                    "run's crosscheck (numerics-sensitive; read their rates with care).")
+        caption += (f" Dashed red frames: {len(flags)} cell(s) whose results moved under finer numerics or on the "
+                    "other physics engine in the run's crosschecks (numerics- or engine-sensitive; read their "
+                    "rates with care).")
     html = page.figure(fig, caption)
     if flags:
         items = "".join(f"<li>{_e(v)} / {_e(o)} / {_e(r)}: {_e(why)}</li>" for (v, _, o, r), why in sorted(flags.items()))
-        html += f'<p class="note">Numerics-sensitive cells (crosscheck):</p><ul>{items}</ul>'
+        html += f'<p class="note">Numerics- and engine-sensitive cells (crosschecks):</p><ul>{items}</ul>'
     return html
 
 
