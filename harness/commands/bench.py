@@ -19,6 +19,11 @@ overhead
     Both include the scene setup (file loading and settling); `loop overhead` divides what is left
     after subtracting the replay time of the setup calls (all calls before the first control step)
     from both, for whoever optimises the step loop.
+    With `--engine mujoco` the bare side is MuJoCo's own stepping: per run of steps on one compiled
+    model with no state written in between, the state before its first step and each step's inputs
+    (speed-constraint references, clutch efforts, gravity) are recorded; the replay sets them and
+    calls mj_step, nothing else (scene building and compiling are harness time there). The final
+    joint positions must match bit for bit. The other figures run the quickstart on that engine.
 scaling
     Throughput (trials/s) of a batch of quickstart-campaign payloads run by `harness.campaigns.executors`
     with `harness.campaigns.campaign.run_payload` on 2 workers over 1 worker; whole-batch wall time, worker
@@ -57,6 +62,8 @@ import threading
 import time
 from pathlib import Path
 
+from ..constants import ENGINES
+
 __all__ = ["register", "cmd_bench", "measure_overhead", "measure_scaling", "measure_memory",
            "measure_startup", "measure_throughput", "TARGETS", "REPEATS"]
 
@@ -94,6 +101,9 @@ def register(subparsers):
                                                         "quickstart trial per cell")
     b.add_argument("--only", action="append", choices=list(TARGETS), metavar="NAME",
                    help="measure only this figure (repeatable): " + ", ".join(TARGETS))
+    b.add_argument("--engine", choices=ENGINES, default="pybullet",
+                   help="physics engine to measure (default pybullet); overhead is against that engine's own "
+                        "bare stepping")
     b.add_argument("--profile", action="store_true", help="also print cProfile's top functions of the "
                                                           "overhead trials")
 
@@ -146,29 +156,136 @@ def _setup_calls(calls, settle_steps):
     return calls[:steps[settle_steps]] if len(steps) > settle_steps else calls
 
 
-def measure_overhead(trials, repeats=REPEATS, profile=None):
-    """Harness trials vs the bare replay of their engine calls (see the module doc)."""
+class _BulletBare:
+    """pybullet: the trial's state-changing engine calls, recorded and replayed in the same client."""
+
+    def __init__(self):
+        from ..sim.bullet_world import BulletWorld
+        self.world = BulletWorld()
+
+    def record(self, run):
+        module = self.world.p
+        self.world.p = _Recorder(module)
+        try:
+            row = run()
+        finally:
+            self.calls, self.world.p = self.world.p.calls, module
+        self.steps = sum(c[0].__name__ == "stepSimulation" for c in self.calls)
+        self.setup = _setup_calls(self.calls, self.steps - row["steps"])
+        return row
+
+    def state(self):
+        return _poses(self.world)
+
+    def replay(self, setup_only=False):
+        _replay(self.setup if setup_only else self.calls)
+        return _poses(self.world)
+
+
+class _MujocoBare:
+    """MuJoCo: per run of steps on one compiled model with no state written in between (a segment),
+    the state before its first step and every step's inputs (speed-constraint references, clutch
+    efforts, gravity); the bare replay sets them and steps, with the clutch hand-over (module doc of
+    mujoco_world), and nothing else."""
+
+    def __init__(self):
+        from ..sim.mujoco_world import MujocoWorld
+
+        class Recorded(MujocoWorld):
+            recording = False
+
+            def reset(self):
+                super().reset()
+                self.segments, self._fresh = [], True
+
+            def _compile(self):
+                self._fresh |= self._dirty
+                super()._compile()
+
+            def reset_pose(self, *args):
+                super().reset_pose(*args)
+                self._fresh = True
+
+            def reset_joint(self, *args):
+                super().reset_joint(*args)
+                self._fresh = True
+
+            def step(self, n=1):
+                if not self.recording:
+                    return super().step(n)
+                self._compile()
+                mj, m, d = self.mj, self.model, self.data
+                for _ in range(n):
+                    if self._fresh:
+                        start = mj.MjData(m)
+                        mj.mj_copyData(start, m, d)
+                        self.segments.append((m, start, self._clutch, []))
+                        self._fresh = False
+                    self._prepare(m, d)
+                    self.segments[-1][3].append((m.eq_data[:, 0].copy(), m.dof_frictionloss.copy(),
+                                                 m.opt.gravity.copy()))
+                    mj.mj_step(m, d)
+                self._stale = True
+                self.time += n * self.settings.time_step
+
+        from ..sim.world import PhysicsSettings
+        self.world = Recorded(PhysicsSettings(engine="mujoco"))
+
+    def record(self, run):
+        self.world.recording = True
+        try:
+            row = run()
+        finally:
+            self.world.recording = False
+        self.segments = self.world.segments
+        self.steps = sum(len(s[3]) for s in self.segments)
+        self.settle = self.steps - row["steps"]  # steps before the hand was in the scene
+        self.final = self.world.data.qpos.copy()
+        return row
+
+    def state(self):
+        return self.world.data.qpos.tolist()
+
+    def replay(self, setup_only=False):
+        import mujoco
+        copies = []
+        for m, start, clutch, inputs in self.segments:  # allocated before the timed part below
+            d = mujoco.MjData(m)
+            mujoco.mj_copyData(d, m, start)
+            copies.append(d)
+        done = 0
+        for (m, _, (slip, motor), inputs), d in zip(self.segments, copies):
+            if setup_only and done >= self.settle:
+                break
+            for eq, effort, gravity in inputs:
+                if len(slip):
+                    d.qpos[motor] += d.qpos[slip]
+                    d.qpos[slip] = 0.0
+                m.eq_data[:, 0] = eq
+                m.dof_frictionloss[:] = effort
+                m.opt.gravity[:] = gravity
+                mujoco.mj_step(m, d)
+            done += len(inputs)
+        return d.qpos.tolist()
+
+
+def measure_overhead(trials, repeats=REPEATS, profile=None, engine="pybullet"):
+    """Harness trials vs the bare replay of their engine work (see the module doc)."""
     from ..sim.trial import Perturbation, run_trial
-    from ..sim.bullet_world import BulletWorld
     model, instances, routine = _scenario()
     harness_s = bare_s = setup_s = 0.0
     steps = ctrl_steps = 0
     exact = True
     outcomes = {}
-    with BulletWorld() as world:
-        module = world.p
+    bare = _BulletBare() if engine == "pybullet" else _MujocoBare()
+    world = bare.world
+    try:
         for i in range(trials):
             inst = instances[i % len(instances)]
-            world.p = _Recorder(module)
-            try:
-                ref = run_trial(model, inst, routine, Perturbation(), seed=i, world=world)
-            finally:
-                calls, world.p = world.p.calls, module
-            total_steps = sum(c[0].__name__ == "stepSimulation" for c in calls)
-            steps += total_steps
+            ref = bare.record(lambda: run_trial(model, inst, routine, Perturbation(), seed=i, world=world))
+            steps += bare.steps
             ctrl_steps += ref["steps"]
             outcomes[ref["outcome"]] = outcomes.get(ref["outcome"], 0) + 1
-            setup = _setup_calls(calls, total_steps - ref["steps"])
             best_h = best_b = best_s = float("inf")
             for _ in range(repeats):
                 started = time.perf_counter()
@@ -178,33 +295,36 @@ def measure_overhead(trials, repeats=REPEATS, profile=None):
                 if profile is not None:
                     profile.disable()
                 best_h = min(best_h, time.perf_counter() - started)
-                after_harness = _poses(world)
+                after_harness = bare.state()
                 started = time.perf_counter()
-                _replay(calls)
+                replayed = bare.replay()
                 best_b = min(best_b, time.perf_counter() - started)
-                exact &= _poses(world) == after_harness and row["outcome"] == ref["outcome"]
+                exact &= replayed == after_harness and row["outcome"] == ref["outcome"]
                 started = time.perf_counter()
-                _replay(setup)
+                bare.replay(setup_only=True)
                 best_s = min(best_s, time.perf_counter() - started)
             harness_s, bare_s, setup_s = harness_s + best_h, bare_s + best_b, setup_s + best_s
+    finally:
+        world.close()
     return {
-        "value": harness_s / bare_s, "trials": trials, "repeats": repeats, "steps": steps,
+        "value": harness_s / bare_s, "engine": engine, "trials": trials, "repeats": repeats, "steps": steps,
         "control_steps": ctrl_steps, "harness_s": harness_s, "bare_s": bare_s, "setup_s": setup_s,
         "loop_overhead": (harness_s - setup_s) / (bare_s - setup_s),
         "harness_steps_per_s": steps / harness_s, "bare_steps_per_s": steps / bare_s,
-        "replay_exact": bool(exact), "outcomes": outcomes,
+        "trials_per_s": trials / harness_s, "replay_exact": bool(exact), "outcomes": outcomes,
     }
 
 
 # --- workers -----------------------------------------------------------------------------------
 
-def _quickstart_tasks(trials=None):
-    """The quickstart campaign's tasks; `trials` keeps only trial indexes below it."""
+def _quickstart_tasks(trials=None, engine=None):
+    """The quickstart campaign's tasks (on `engine` instead of its own); `trials` keeps only trial
+    indexes below it."""
     from ..campaigns.campaign import expand, load_campaign
     if not QUICKSTART.is_file():
         from ..errors import HarnessError
         raise HarnessError(f"bench needs the repository's {QUICKSTART.relative_to(REPO)} (not found at {QUICKSTART})")
-    tasks = expand(load_campaign(QUICKSTART)).tasks
+    tasks = expand(load_campaign(QUICKSTART, engine)).tasks
     return [t for t in tasks if trials is None or t.payload["trial"] < trials]
 
 
@@ -224,8 +344,8 @@ def _run_batch(tasks, workers, fn=None):
     return time.perf_counter() - started, rows
 
 
-def measure_scaling(batch):
-    tasks = _spread(_quickstart_tasks(), batch)
+def measure_scaling(batch, engine=None):
+    tasks = _spread(_quickstart_tasks(engine=engine), batch)
     one, rows1 = _run_batch(tasks, 1)
     two, rows2 = _run_batch(tasks, 2)
     failed = sum(r.get("outcome") in ("error", "timeout") for r in rows1 + rows2)
@@ -249,11 +369,12 @@ def memory_probe(payload):
     return {**run_payload(payload), "rss_mb": resident_mb()}
 
 
-def measure_memory(first, last):
+def measure_memory(first, last, engine=None):
     from ..campaigns.campaign import TrialTask
     if not Path("/proc/self/statm").exists():
         return {"value": None, "note": "no /proc/self/statm on this system"}
-    base = [t for t in _quickstart_tasks() if t.payload["variant"] == VARIANT and t.payload["routine"] == ROUTINE]
+    base = [t for t in _quickstart_tasks(engine=engine) if t.payload["variant"] == VARIANT
+            and t.payload["routine"] == ROUTINE]
     tasks = [TrialTask(f"{k}", {**base[k % len(base)].payload, "trial_key": f"{k}"}) for k in range(last)]
     seconds, rows = _run_batch(tasks, 1, memory_probe)
     order = sorted(rows, key=lambda r: int(r["trial_key"]))
@@ -286,7 +407,7 @@ def measure_startup(runs=5):
                                                                    for i, c in enumerate(command))}
 
 
-def measure_throughput(trials=None):
+def measure_throughput(trials=None, engine=None):
     """The quickstart campaign (or its first `trials` trial indexes per cell) with one worker per core."""
     from .campaign import run_campaign
     cores = os.cpu_count() or 1
@@ -301,7 +422,7 @@ def measure_throughput(trials=None):
             campaign.write_text(text)
         started = time.perf_counter()
         code = run_campaign(campaign, workers=cores, out=Path(tmp) / "runs", progress=False,
-                            echo=lambda *a, **k: None)
+                            echo=lambda *a, **k: None, engine=engine)
         seconds = time.perf_counter() - started
         from ..campaigns.runs import load_run
         (folder,) = (Path(tmp) / "runs").iterdir()
@@ -324,7 +445,8 @@ def _detail(name, r):
     if r.get("value") is None:
         return r.get("note", "")
     if name == "overhead":
-        return (f"{r['trials']} trials, {r['steps']} steps, harness {r['harness_s']:.2f} s vs bare "
+        return (f"{r['trials']} trials ({r['trials_per_s']:.2f} trials/s on one core), {r['steps']} steps, "
+                f"harness {r['harness_s']:.2f} s vs bare "
                 f"{r['bare_s']:.2f} s (setup {r['setup_s']:.2f} s); loop overhead {r['loop_overhead']:.2f}; "
                 f"replay exact: {'yes' if r['replay_exact'] else 'NO'}")
     if name == "scaling":
@@ -339,14 +461,14 @@ def _detail(name, r):
     return f"{r['campaign']}: {r['trials']} trials in {r['seconds']:.1f} s on {r['cores']} core(s)"
 
 
-def run_bench(quick=False, trials=None, only=None, profile=None, log=None):
+def run_bench(quick=False, trials=None, only=None, profile=None, log=None, engine="pybullet"):
     sizes = QUICK if quick else FULL
     measures = {
-        "overhead": lambda: measure_overhead(trials or sizes["trials"], profile=profile),
-        "scaling": lambda: measure_scaling(sizes["scaling_batch"]),
-        "memory": lambda: measure_memory(*sizes["memory"]),
+        "overhead": lambda: measure_overhead(trials or sizes["trials"], profile=profile, engine=engine),
+        "scaling": lambda: measure_scaling(sizes["scaling_batch"], engine),
+        "memory": lambda: measure_memory(*sizes["memory"], engine),
         "startup": measure_startup,
-        "throughput": lambda: measure_throughput(sizes["quickstart_trials"]),
+        "throughput": lambda: measure_throughput(sizes["quickstart_trials"], engine),
     }
     results = {}
     for name, measure in measures.items():
@@ -366,15 +488,16 @@ def run_bench(quick=False, trials=None, only=None, profile=None, log=None):
 def cmd_bench(args):
     import cProfile
     import pstats
+    from ..sim.engines import engine_version
     from ..table import format_table
     if args.trials is not None and args.trials < 1:
         from ..errors import SpecError
         raise SpecError("--trials", [("--trials", f"must be a whole number > 0; got {args.trials}")])
     profile = cProfile.Profile() if args.profile else None
     log = None if args.json else (lambda text: print(text, file=sys.stderr, flush=True))
-    results = run_bench(args.quick, args.trials, args.only, profile, log)
+    results = run_bench(args.quick, args.trials, args.only, profile, log, args.engine)
     if args.json:
-        print(json.dumps({"quick": args.quick, "results": results}, default=str))
+        print(json.dumps({"quick": args.quick, "engine": args.engine, "results": results}, default=str))
     else:
         rows = []
         for name, r in results.items():
@@ -383,6 +506,7 @@ def cmd_bench(args):
             rows.append({"figure": name, "value": "n/a" if value is None else f"{value:.3g} {unit}",
                          "target": "-" if target is None else f"{'<=' if sense == 'max' else '>='} {target:g} {unit}",
                          "verdict": r["verdict"], "how": _detail(name, r)})
+        print(f"engine: {engine_version(args.engine)}")
         print(format_table(rows))
         start = next(iter(results.values()))["load_before"]
         print(f"\n1-minute load average before the bench: {start:.2f} on {os.cpu_count()} core(s)"

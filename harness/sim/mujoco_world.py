@@ -367,24 +367,30 @@ class MujocoWorld(World):
 
     def step(self, n=1):
         self._compile()
-        mj, m, d, dt = self.mj, self.model, self.data, self.settings.time_step
-        lead = 1.0 / (HARD[0] * dt)  # reference offset per unit of target speed (_speed_constraints)
-        slip, motor = self._clutch
+        mj, m, d = self.mj, self.model, self.data
         for _ in range(n):
-            if len(slip):
-                d.qpos[motor] += d.qpos[slip]
-                d.qpos[slip] = 0.0
-            for mq, eq, speed in self._speeds:
-                m.eq_data[eq, 0] = d.qpos[mq] + speed * lead
-            for qadr, mq, eq, target, max_speed, gain in self._positions:
-                error = target - d.qpos[qadr] - d.qpos[mq]
-                m.eq_data[eq, 0] = d.qpos[mq] + min(max(gain * error / dt, -max_speed), max_speed) * lead
-            for body in self.bodies:
-                if body.wrist is not None:
-                    self._servo_wrist(body, m, d, dt, lead)
+            self._prepare(m, d)
             mj.mj_step(m, d)
         self._stale = True
-        self.time += n * dt
+        self.time += n * self.settings.time_step
+
+    def _prepare(self, m, d):
+        """The harness's work before a step: hand the clutches' slip to their motor sides and move
+        the speed constraints' references (module doc)."""
+        dt = self.settings.time_step
+        lead = 1.0 / (HARD[0] * dt)  # reference offset per unit of target speed (_speed_constraints)
+        slip, motor = self._clutch
+        if len(slip):
+            d.qpos[motor] += d.qpos[slip]
+            d.qpos[slip] = 0.0
+        for mq, eq, speed in self._speeds:
+            m.eq_data[eq, 0] = d.qpos[mq] + speed * lead
+        for qadr, mq, eq, target, max_speed, gain in self._positions:
+            error = target - d.qpos[qadr] - d.qpos[mq]
+            m.eq_data[eq, 0] = d.qpos[mq] + min(max(gain * error / dt, -max_speed), max_speed) * lead
+        for body in self.bodies:
+            if body.wrist is not None:
+                self._servo_wrist(body, m, d, dt, lead)
 
     def set_gravity(self, g):
         self.gravity = tuple(float(x) for x in g)
