@@ -30,7 +30,7 @@ def _parser():
     t.add_argument("objects", metavar="OBJECTS", help="object set file")
     t.add_argument("--object", required=True, metavar="NAME", help="object instance name (see `show OBJECTS`)")
     t.add_argument("--routine", default="draw-in-grasp", metavar="NAME",
-                   help="draw-in-grasp (default), pinch-lift, roll, angled-roll, shift, hold-under-shake, inside-grasp")
+                   help="draw-in-grasp (default); `grasp-harness routines` lists them all with their parameters")
     t.add_argument("--variant", metavar="NAME", help="variant name (see `show GRIPPER`); default: the one with "
                                                       "the spec's own values, else the first of its sweep")
     t.add_argument("--physics", action="append", default=[], metavar="KEY=VALUE",
@@ -38,7 +38,8 @@ def _parser():
                         "--physics step_hz=480 (default: the campaign defaults)")
     t.add_argument("--engine", choices=ENGINES, help="physics engine (default pybullet; same as --physics engine=...)")
     t.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
-                   help="a routine parameter in file units, e.g. --set angle_deg=450 (repeatable)")
+                   help="a routine parameter in file units, e.g. --set angle_deg=450 (repeatable; "
+                        "`grasp-harness routines NAME` lists them)")
     t.add_argument("--seed", type=int, default=0, help="trial seed (default 0)")
     t.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     t.add_argument("--plot", metavar="FILE.png",
@@ -55,19 +56,21 @@ def _parser():
     register_bench(sub)
     from .commands.envelope import register as register_envelope
     register_envelope(sub)
+    from .commands.routines import register as register_routines
+    register_routines(sub)
     return p
 
 
 def main(argv=None):
     args = _parser().parse_args(argv)
     from .errors import HarnessError, SpecError
-    from .commands import analysis, bench, campaign, convergence, envelope, report
+    from .commands import analysis, bench, campaign, convergence, envelope, report, routines
     handlers = {"check": cmd_check, "build": cmd_build, "show": cmd_show, "try": cmd_try,
                 "summary": analysis.cmd_summary, "compare": analysis.cmd_compare, "rank": analysis.cmd_rank,
                 "plan": campaign.cmd_plan, "run": campaign.cmd_run, "export": campaign.cmd_export,
                 "report": report.cmd_report, "replay": report.cmd_replay, "bench": bench.cmd_bench,
                 "converge": convergence.cmd_converge, "crosscheck": convergence.cmd_crosscheck,
-                "envelope": envelope.cmd_envelope}
+                "envelope": envelope.cmd_envelope, "routines": routines.cmd_routines}
     try:
         return handlers[args.command](args)
     except SpecError as exc:

@@ -447,6 +447,9 @@ CASES = [
     Case("urdf_folder_with_mass", "lab", (append(PART_URDF_OBJECT + "mass_g = 40\n"),),
          files=(write_file("parts/palm.urdf", hand_urdf()),),
          fields=("object[8].mass_g",), says=("must not be given for 'urdf-folder'",)),
+    Case("urdf_folder_with_density", "lab", (append(PART_URDF_OBJECT + "density_kg_m3 = 1200\n"),),
+         files=(write_file("parts/palm.urdf", hand_urdf()),),
+         fields=("object[8].density_kg_m3",), says=("must not be given for 'urdf-folder' with inertia = \"file\"",)),
     # --- files that are not specs at all ---------------------------------------------------------
     Case("not_valid_toml", "duo", (replace("count = 2\n", "count = \n"),),
          says=("is not valid TOML: Invalid value (at line 12",)),

@@ -70,7 +70,7 @@ BAD = {
     "unknown gripper file": (spoil(f'spec = "{DUO}"', 'spec = "models/grippers/nope.toml"'),
                              "gripper[0].spec", "not found"),
     "gripper path leaves the root": (spoil(f'spec = "{DUO}"', 'spec = "../outside.toml"'),
-                                     "gripper[0].spec", "leaves it"),
+                                     "gripper[0].spec", "must name a path inside the campaign's root"),
     "empty variants list": (spoil('variants = ["duo-roller[finger.roller.radius_mm=12]"]', "variants = []"),
                             "gripper[0].variants", "at least one variant"),
     "unknown variant": (spoil("radius_mm=12]", "radius_mm=13]"), "gripper[0].variants",
@@ -319,7 +319,7 @@ def test_timed_out_trials_are_complete_rows(tiny, tmp_path):
 def test_cli_plan_and_export(tiny, tmp_path, capsys):
     assert main(["plan", str(tiny), "--workers", "2"]) == 0
     out = capsys.readouterr().out
-    assert "2 cell(s), 4 trial(s); 0 trial(s)" in out and "Estimated run time with 2 worker(s)" in out
+    assert "2 cell(s), 4 trial(s); none skipped." in out and "Estimated run time with 2 worker(s)" in out
     assert main(["export", str(tmp_path / "nowhere"), "--to", "csv"]) == 2
 
 

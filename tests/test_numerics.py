@@ -157,7 +157,7 @@ def test_drift_is_reported_only_while_the_object_is_in_the_hand():
     # A grip with a twentieth of the motors' torque cannot lift the steel weight: it is lost, and its
     # fall is not a drift of the grasp (NaN), while slip still reports what the contacts did.
     row = run_trial(gripper("pad-jaw"), object_set("stress")["steel-weight"],
-                    make_routine("pinch-lift", {"grip_torque": 0.05}), seed=0)
+                    make_routine("pinch-lift", {"grip_torque_share": 0.05}), seed=0)
     assert row["outcome"] in ("dropped", "ejected", "missed"), row["outcome"]
     assert math.isnan(row["drift_mm"]) and math.isnan(row["hold_drift_mm"])
     held = run_trial(gripper("pad-jaw"), object_set("lab-cell")["vial-1"], make_routine("pinch-lift"), seed=0)

@@ -157,3 +157,14 @@ def test_a_run_folder_holding_a_pick_envelope_shows_its_chart_and_boundary(made,
     assert "rigid bite boundary mu = tan(beta)" in text and "measured_mu" in text
     (copy / POINTS_CSV).unlink()
     assert build_report(copy, out, worst=0).images == before - 1
+
+
+def test_dropped_and_ejected_trials_come_under_their_own_headings():
+    import pandas as pd
+    df = pd.DataFrame({
+        "trial_key": ["d1", "e1", "h1", "h2"], "variant": ["v"] * 4, "object": ["a", "b", "c", "d"],
+        "routine": ["roll"] * 4, "outcome": ["dropped", "ejected", "held", "held"],
+        "slip_mm": [3.0, 9.0, 5.0, 1.0], "drift_mm": [float("nan"), float("nan"), 0.5, 2.0]})
+    kinds = {kind: [r["trial_key"] for k, _, r in worst_trials(df, 2) if k == kind]
+             for kind in ("dropped", "ejected", "largest slip", "largest drift")}
+    assert kinds == {"dropped": ["d1"], "ejected": ["e1"], "largest slip": ["h1", "h2"], "largest drift": []}

@@ -228,6 +228,9 @@ def load_campaign(path, engine=None) -> Campaign:
                     top.detect_drop)
 
 
+ROOT_FOLDER = "the campaign's root"  # how errors name the folder a campaign's paths are read from
+
+
 def _root(path, root, problems):
     """A stand-in file in the root folder, so `specs.inside` keeps paths inside that folder."""
     folder = (path.resolve().parent / root).resolve()
@@ -260,7 +263,7 @@ def _grippers(path, base, raw, problems):
         entry = parse(GripperEntry, item, problems, at)
         if entry is None:
             continue
-        file = inside(base, entry.spec, f"{at}.spec", problems)
+        file = inside(base, entry.spec, f"{at}.spec", problems, folder=ROOT_FOLDER)
         if file is None:
             continue
         try:
@@ -325,7 +328,7 @@ def _object_sets(base, files, problems):
     out, names = [], {}
     for i, rel in enumerate(files):
         at = f"objects[{i}]"
-        file = inside(base, rel, at, problems)
+        file = inside(base, rel, at, problems, folder=ROOT_FOLDER)
         if file is None:
             continue
         try:

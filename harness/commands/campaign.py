@@ -95,20 +95,14 @@ def _bad_input(work):
 # --- plan ----------------------------------------------------------------------------------------
 
 def cmd_plan(args):
-    from ..campaigns.campaign import expand, load_campaign, run_payload
+    from ..campaigns.campaign import expand, load_campaign
     from ..table import format_table
     campaign = load_campaign(args.campaign)
     plan = expand(campaign)
     rows = [{"variant": v, "object_set": s, "object": o, "routine": r, "trials": n}
             for (v, s, o, r), n in plan.cells().items()]
     print(format_table(rows))
-    print(f"\n{len(rows)} cell(s), {len(plan.tasks)} trial(s); {plan.skipped} trial(s) in "
-          f"{len(plan.skipped_cells)} combination(s) skipped because the routine does not suit them:")
-    reasons = {}
-    for variant, obj, routine, reason in plan.skipped_cells:
-        reasons.setdefault((routine, reason), []).append(f"{variant} / {obj}")
-    for (routine, reason), pairs in reasons.items():
-        print(f"  {routine}: {reason} ({len(pairs)} combination(s))")
+    print(f"\n{len(rows)} cell(s), {len(plan.tasks)} trial(s)" + _skipped_text(plan))
     if plan.short_reach:
         print(f"{len(plan.short_reach)} cell(s) should miss from geometry alone (object height against the "
               "fingertips' reach or the rollers' bite condition; nothing simulated):")
@@ -118,18 +112,17 @@ def cmd_plan(args):
         print(line)
     if not plan.tasks:
         return 0
-    picks = sorted({0, len(plan.tasks) // 2})
-    started = time.perf_counter()
-    walls = [run_payload(plan.tasks[i].payload)["wall_s"] for i in picks]
-    loading = time.perf_counter() - started - sum(walls)
     workers = args.workers or os.cpu_count() or 1
-    per_trial = sum(walls) / len(walls)
     print(f"\nPhysics: {campaign.physics.solver_iterations} solver iterations at {campaign.physics.step_hz} Hz "
           "(the campaign's [physics] table, else the defaults).")
-    estimate = loading + len(plan.tasks) * per_trial / workers
-    print(f"\nCalibration: {len(walls)} trial(s), {per_trial:.2f} s each, {loading:.1f} s loading models.")
-    print(f"Estimated run time with {workers} worker(s): {_duration(estimate)} (rough: trials differ by "
-          "routine and object)")
+    total, loading, calibrated = calibrate(campaign, plan, workers)
+    per_trial = total / len(plan.tasks)
+    estimate = loading + total / workers
+    walls = sorted(calibrated.values())
+    print(f"\nCalibration: {len(walls)} trial(s), one per routine x object kind, {walls[0]:.2f} to {walls[-1]:.2f} s "
+          f"each; {loading:.1f} s starting workers and loading models.")
+    print(f"Estimated run time with {workers} worker(s): {_duration(estimate)} (each trial timed like the "
+          "calibration trial of its routine and object kind)")
     hours = args.hours if getattr(args, "hours", None) is not None else (campaign.stop.hours if campaign.stop else None)
     if hours:
         rounds = int(max(0.0, hours * 3600 - loading) * workers / per_trial // len(rows))
@@ -137,6 +130,45 @@ def cmd_plan(args):
               f"round(s) fit (a round is one pair of trials per cell, {len(rows)} trials); a run stopped by the "
               "budget has every cell within one round of the others.")
     return 0
+
+
+def _skipped_text(plan):
+    """How many trials the plan leaves out and why; nothing to say when none are."""
+    if not plan.skipped_cells:
+        return "; none skipped."
+    reasons = {}
+    for variant, obj, routine, reason in plan.skipped_cells:
+        reasons.setdefault((routine, reason), []).append(f"{variant} / {obj}")
+    lines = [f"; {plan.skipped} trial(s) in {len(plan.skipped_cells)} combination(s) skipped because the routine "
+             "does not suit them:"]
+    lines += [f"  {routine}: {reason} ({len(pairs)} combination(s))" for (routine, reason), pairs in reasons.items()]
+    return "\n".join(lines)
+
+
+def calibrate(campaign, plan, workers):
+    """Time one trial of each routine x object kind the plan holds, in `workers` processes as a run
+    would (trials of one routine on one kind of object cost alike; across them they differ several
+    fold). Returns (estimated trial seconds of the whole plan, seconds of start-up and loading,
+    {"routine / kind": calibration trial seconds})."""
+    from contextlib import closing
+
+    from ..campaigns.campaign import run_payload
+    from ..campaigns.executors import iter_results
+    kinds = {(s.name, i.name): i.kind for s, instances in campaign.object_sets for i in instances}
+
+    def group(task):
+        return f"{task.payload['routine']} / {kinds[(task.payload['object_set'], task.payload['object'])]}"
+
+    first = {}
+    for task in plan.tasks:
+        first.setdefault(group(task), task)
+    started = time.perf_counter()
+    with closing(iter_results(((g, t.payload) for g, t in first.items()), run_payload,
+                              workers=min(workers, len(first)), timeout=campaign.timeout_s)) as results:
+        calibrated = {g: float(row.get("wall_s") or campaign.timeout_s or 0.0) for g, row in results}
+    elapsed = time.perf_counter() - started
+    loading = max(0.0, elapsed - sum(calibrated.values()) / min(workers, len(first)))
+    return sum(calibrated[group(t)] for t in plan.tasks), loading, calibrated
 
 
 def power_lines(campaign, plan, alpha=0.05):
@@ -291,7 +323,7 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
     from ..campaigns.journal import EVENTS_NAME, EventLog, Journal
     from ..campaigns.runs import environment, load_run, new_run_folder, read_campaign, write_campaign
     from ..sim.engines import engine_version
-    from ..campaigns.executors import run_tasks
+    from ..campaigns.executors import RunReport, run_tasks
     campaign = load_campaign(campaign_file, engine)  # a malformed campaign stops here: no run folder
     plan = expand(campaign)
     resolved = campaign.resolved()
@@ -325,7 +357,7 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
                    executor=executor, hours=hours)
         tally = {"valid": 0, "held": 0}
         failures = {}  # short reason -> count, for the progress line
-        bar = tqdm(total=len(plan.tasks), initial=len(done), unit="trial", disable=not progress,
+        bar = tqdm(total=len(plan.tasks), initial=len(done), unit="trial", disable=not progress or not todo,
                    dynamic_ncols=True, smoothing=0.1)
 
         def on_result(key, row):
@@ -352,9 +384,13 @@ def run_campaign(campaign_file, *, workers=None, resume=None, out="runs", execut
                 bar.set_postfix_str("; ".join(parts), refresh=False)
             bar.update(1)
 
-        report = run_tasks(sched, run_payload, on_result=on_result, workers=workers,
-                           timeout=campaign.timeout_s, executor=executor, scheduler=scheduler)
-        bar.close()
+        if resume and not todo:  # no workers to start
+            echo(f"nothing to do: {len(done)} of {len(plan.tasks)} trials recorded in {folder}")
+            report = RunReport(0, interrupted=False)
+        else:
+            report = run_tasks(sched, run_payload, on_result=on_result, workers=workers,
+                               timeout=campaign.timeout_s, executor=executor, scheduler=scheduler)
+            bar.close()
         events.log("run_end", finished=report.finished, interrupted=report.interrupted)
         remaining = len(plan.tasks) - journal.count()
     if report.interrupted:

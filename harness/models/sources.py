@@ -30,12 +30,13 @@ def load_toml(path):
         raise SpecError(path, [("", f"cannot be read as TOML text: {exc}")]) from None
 
 
-def inside(spec_file, relative, field, problems, want="file"):
-    """Resolve `relative` against the spec's folder; it must stay inside that folder and exist."""
+def inside(spec_file, relative, field, problems, want="file", folder="the spec's folder"):
+    """Resolve `relative` against the spec's folder; it must stay inside that folder and exist.
+    `folder` names that folder in the error (a campaign's is its root)."""
     base = Path(spec_file).resolve().parent
     target = (base / relative).resolve()
     if not target.is_relative_to(base):
-        problems.add(field, f"must name a path inside the spec's folder {base}; got {relative!r}, which leaves it")
+        problems.add(field, f"must name a path inside {folder} {base}; got {relative!r}, which leaves it")
         return None
     exists = target.is_dir() if want == "folder" else target.is_file()
     if not exists:

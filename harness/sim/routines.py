@@ -58,9 +58,9 @@ class Params:
     """Parameters every routine takes (SI in code; the file's unit is in the key)."""
 
     approach_s: float = param("approach_s", gt=0, default=0.4)
-    grip_height: float = param("grip_height", gt=0, le=1, default=0.5,
+    grip_height: float = param("grip_height_share", gt=0, le=1, default=0.5,
                                doc="where the fingertips meet the object, as a share of its height")
-    grip_torque: float = param("grip_torque", gt=0, le=1, default=1.0, doc="share of the closing motors' limit")
+    grip_torque: float = param("grip_torque_share", gt=0, le=1, default=1.0, doc="share of the closing motors' limit")
     close_s: float = param("close_s", gt=0, default=None,
                            doc="longest closing time; default: the fingers' full travel time plus 0.3 s")
     lift: float = param("lift_mm", unit="mm", gt=0, default=0.06)
@@ -70,7 +70,7 @@ class Params:
 
 @dataclass(frozen=True, kw_only=True)
 class DrawInParams(Params):
-    draw_speed: float = param("draw_speed", gt=0, le=1, default=0.6, doc="share of the roller speed limit")
+    draw_speed: float = param("draw_speed_share", gt=0, le=1, default=0.6, doc="share of the roller speed limit")
     draw_s: float = param("draw_s", gt=0, default=1.5, doc="longest draw-in time")
     seat: bool = param("seat", "boolean", default=True,
                        doc="draw the object in until it seats against the palm or fingers; false: "
@@ -113,7 +113,7 @@ class ShiftParams(DrawInParams):
 class ShakeParams(DrawInParams):
     accel: float = param("accel_g", gt=0, le=10, default=1.0, doc="peak wrist acceleration in g")
     frequency: float = param("frequency_hz", gt=0, le=50, default=4.0)
-    tilt: float = param("tilt_deg", unit="deg", ge=0, le=math.pi / 2, default=math.radians(20),
+    tilt: float = param("tilt_deg", unit="deg", ge=0, le=90, default=math.radians(20),
                         doc="swing of the gravity direction")
     shake_s: float = param("shake_s", gt=0, default=1.5)
 

@@ -488,14 +488,18 @@ def _interval(est, lo, hi):
 # --- worst trials ---------------------------------------------------------------------------------
 
 def worst_trials(df, n=2):
-    """[(kind, moment, row)]: dropped or ejected trials (largest slip first), then the largest slip and
-    the largest drift among the rest of the valid trials; drift only among trials still held at the end."""
+    """[(kind, moment, row)]: dropped trials, then ejected ones (each largest slip first, each under its
+    own heading), then the largest slip and the largest drift among the rest of the valid trials; drift
+    only among trials still held at the end."""
     from ..analysis.summary import valid_mask
     valid = df[valid_mask(df)]
     picked, out = set(), []
-    lost = valid[valid["outcome"].isin(("dropped", "ejected"))].sort_values("slip_mm", ascending=False)
+    def lost(outcome):
+        return valid[valid["outcome"] == outcome].sort_values("slip_mm", ascending=False)
+
     kept = valid[valid["outcome"].isin(("held", "stalled"))]
-    for kind, moment, table, column in (("dropped", "drop", lost, None),
+    for kind, moment, table, column in (("dropped", "drop", lost("dropped"), None),
+                                        ("ejected", "drop", lost("ejected"), None),
                                         ("largest slip", "slip", valid, "slip_mm"),
                                         ("largest drift", "drift", kept, "drift_mm")):
         if column is not None:
@@ -517,7 +521,7 @@ def _worst(page, run, df, n, campaign_file, replays):
     from ..campaigns.runs import read_campaign
     chosen = worst_trials(df, n)
     if not chosen:
-        return '<p class="note">No dropped, slipping or drifting valid trials.</p>'
+        return '<p class="note">No dropped, ejected, slipping or drifting valid trials.</p>'
     # a campaign path recorded relative to where the run was started goes into the command resolved
     recorded = Path(campaign_file or read_campaign(run).get("file", ""))
     extra = ("--campaign", str(recorded.resolve())) if campaign_file or not recorded.is_absolute() else ()
