@@ -6,6 +6,7 @@ import re
 from functools import lru_cache
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from harness.errors import SpecError
@@ -14,6 +15,7 @@ from harness.models.objects import generate
 from harness.sim.routines import make_routine
 from harness.models.specs import load_any, load_gripper
 from harness.sim.trial import run_trial
+from harness.sim.world import PhysicsSettings
 
 MODELS = Path(__file__).resolve().parents[1] / "models"
 
@@ -90,7 +92,12 @@ def test_reach_from_geometry_names_the_low_parts_each_routine_misses():
         "object top 1.5 mm: 12 mm rollers on the surface meet its edge 61 deg below level, drawing in needs "
         "mu > 1.81, the pair's mu is 0.59")
     assert make_routine("surface-draw-in").reach(duo, cap) is None
-    assert make_routine("draw-in-grasp").reach(duo, cap) is None  # 10.6 mm tall: the tips reach it
+    # the cap is 10.6 mm tall; a 12 mm roller 3 mm over the table has its centre at 15 mm, above the
+    # cap's top, so it meets only the cap's top edge
+    assert make_routine("draw-in-grasp").reach(duo, cap) == (
+        "object top 10.6 mm, the rollers' centres stay above 12 + 3 = 15.0 mm: they would meet only its top edge "
+        "(surface-draw-in picks parts this low)")
+    assert make_routine("draw-in-grasp").reach(duo, objects("lab-cell")["vial-0"]) is None
 
 
 def test_plan_and_show_tell_reach_before_simulating(tmp_path, capsys):
@@ -118,3 +125,28 @@ name = "surface-draw-in"
     assert "lying 4.1 / edge 3.5" in capsys.readouterr().out
     assert main(["show", str(MODELS / "objects" / "stress.toml")]) == 0
     assert "top_mm" in capsys.readouterr().out
+
+
+def test_the_approach_finds_every_demo_objects_top_and_sections_from_its_collision_geometry():
+    # the draw-in approach aims at the widest section of the object's collision geometry the tips
+    # reach (phases.section_widths); it needs the object's true top: the engine's bounding box of a
+    # turned convex hull is the hull's own box turned (a resting 21 mm polytope had a 36 mm box, and
+    # every section ray passed over it), so the top comes from rays cast down over the part
+    from harness.sim.engines import open_world
+    from harness.sim.phases import section_widths
+    from harness.sim.routines import rest_height
+    from harness.sim.trial import Perturbation, TrialContext
+    duo = own("duo-roller")
+    with open_world(PhysicsSettings()) as world:
+        for set_name in ("lab-cell", "stress"):
+            for inst in objects(set_name).values():
+                world.reset()
+                ctx = TrialContext(world, duo, inst, Perturbation(), 0)
+                top = ctx.object_top()
+                # the part's resting height plus the engine's collision margins (hulls: 1 mm each at the
+                # table and at the top, measured), never the box's excess; a random polytope tips onto a
+                # face as it settles, lower than it was generated
+                low = 0.0 if inst.kind == "polytope" else rest_height(inst) - 0.0005
+                assert low <= top <= rest_height(inst) + 0.0025, (inst.name, top)
+                heights = np.linspace(0.2 * top, 0.9 * top, 8)
+                assert section_widths(ctx, heights).max() > 0, f"{inst.name}: no section ray meets it"

@@ -99,7 +99,7 @@ def _inside_target(ctx, p):
     fitting = [f for f, r in radii.items() if r < bore - BORE_CLEARANCE]
     ctx.preshape = fitting[0] if fitting else min(radii, key=radii.get)
     ctx.hand.reset_joints(ctx.preshape)
-    top = ctx.object_top()
+    top = ctx.world.aabb(ctx.obj)[1][2]  # an upright ring or cup: its box is its own (rays can miss a thin rim)
     floor = top - ctx.instance.draws.get("height", 0.0) + ctx.instance.draws.get("base", 0.0)
     return ctx.wrist_for_grip_height((top + floor) / 2)
 
@@ -167,6 +167,10 @@ def close(ctx, p, log):
     log.note = f"{ctx.tips_touching()} fingertips touching"
     if not ok:
         log.note += f"; object top {top * 1e3:.1f} mm, fingertip centres {tips * 1e3:.1f} mm above the table as they closed"
+        centres = [float(ctx.world.link_state(ctx.hand.body, r.roll)[0][2]) for r in ctx.hand.rollers]
+        if centres and min(centres) > top:
+            log.note += (f"; the roller centres rose to {min(centres) * 1e3:.1f} mm, above its top: they meet only "
+                         "its top edge (surface-draw-in picks parts this low)")
     return ok
 
 
@@ -466,7 +470,7 @@ def touch_down(ctx, p, log):
     ctx.hand.teleport(start, ctx.wrist_orientation)
     ctx.grip = (ctx.preshape, p.close_share)
     ctx.wrist_goal = start
-    ctx.press, ctx.press_offset = p.preload, TOUCH_HEIGHT
+    ctx.press, ctx.press_offset, ctx.press_touched = p.preload, TOUCH_HEIGHT, False
     settled = [0.0]
 
     def pressed(t):

@@ -160,6 +160,11 @@ class Routine:
         height = rest_height(instance)
         if first is approach and height <= TABLE_CLEARANCE:
             return below_reach(height)
+        lowest = (model.roller_radius or 0.0) + TABLE_CLEARANCE  # a roller's centre when its rim is lowest
+        if first is approach and model.roll_joints and height < lowest:
+            return (f"object top {height * 1e3:.1f} mm, the rollers' centres stay above "
+                    f"{model.roller_radius * 1e3:.0f} + {TABLE_CLEARANCE * 1e3:.0f} = {lowest * 1e3:.1f} mm: they would "
+                    "meet only its top edge (surface-draw-in picks parts this low)")
         if first is touch_down and model.roller_radius:
             shape = "disc" if instance.kind in STANDING_KINDS else "cylinder"  # an edge, or a round part lying
             need = required_mu(shape, model.roller_radius, height)

@@ -36,6 +36,7 @@ SETTLE_TIME = 0.5  # s; longest wait for the object to come to rest on the table
 REST_SPEED = 1e-3  # m/s; the object counts as resting below this
 APPROACH_CLEARANCE = 0.04  # m; the hand starts this far above its grasp pose
 TABLE_CLEARANCE = 0.003  # m; lowest gap between a fingertip and the table at the grasp pose
+TOP_RAYS = 25  # rays per side of the grid cast down to find an object's top (2 mm apart over a 50 mm part)
 # Rolling resistance of the bench (arm, m): a plastic tube on a laminate bench has a rolling
 # resistance coefficient of a few thousandths (recalled from memory), about 5e-5 m for a 10 mm
 # tube; without it a round object set down lying keeps rolling from the smallest disturbance.
@@ -132,6 +133,7 @@ class TrialContext:
         self.grip = None  # (fraction, torque_scale) while the fingers are driven
         self.clamp = None  # fixed closing-joint targets once the grasp is formed (Hand.clamp_targets)
         self.press = None  # downward force (N) the wrist holds the rollers on the table with, or None
+        self.press_touched = False  # the rollers have touched the table since the press began
         self.press_offset = 0.0  # m; height of the rollers' lowest point above z = 0 the preload servo aims at
         self._sent = {}  # last command sent per actuator group
         self.total = SlipTally()
@@ -176,7 +178,16 @@ class TrialContext:
         return body
 
     def object_top(self):
-        return self.world.aabb(self.obj)[1][2]
+        """Height (m) of the object's highest point: rays cast down over its bounding box, or the
+        box's top where that is lower. The engine's box of a turned convex hull is the hull's own
+        box turned, so it can stand far above the part (a resting 21 mm polytope had a 36 mm box,
+        measured); the box's top where no ray reaches the object (the hand above it)."""
+        lo, hi = self.world.aabb(self.obj)
+        grid = [(x, y) for x in np.linspace(lo[0], hi[0], TOP_RAYS) for y in np.linspace(lo[1], hi[1], TOP_RAYS)]
+        hits = self.world.ray_hits([(x, y, hi[2] + 1e-3) for x, y in grid], [(x, y, lo[2] - 1e-3) for x, y in grid])
+        tops = [float(point[2]) for body, point in hits if body == self.obj]
+        # rays report spheres and plates about 1 mm above their surfaces (measured), where the box is exact
+        return min(max(tops), float(hi[2])) if tops else float(hi[2])
 
     def tip_span(self):
         """(depth of the tips' centre below the palm, depth of their lowest point) in the hand frame, m."""
@@ -220,8 +231,11 @@ class TrialContext:
         tracks only with a large force error) plus an offset that the force error trims: down
         while the rollers press the table less than `press`, up while they press more."""
         load = self.surface_load()
-        # nothing touches yet: come down at the capped speed (the servo alone would creep)
-        rate = PRESS_GAIN * (load - self.press) if load > 0.0 else -PRESS_SPEED
+        self.press_touched = self.press_touched or load > 0.0
+        # nothing touched yet: come down at the capped speed (the servo alone would creep); once the
+        # rollers have touched, a lost touch is a bounce, and coming down at full speed again kept
+        # four stiff rollers in a limit cycle (0, 52, 13 N against a 2 N preload, measured)
+        rate = PRESS_GAIN * (load - self.press) if self.press_touched else -PRESS_SPEED
         self.press_offset += min(max(rate, -PRESS_SPEED), PRESS_SPEED) * self.control_dt
         frame = self.hand.frame()
         low = max(float(self.hand.to_hand(self.world.link_state(self.hand.body, r.roll)[0], frame)[2]) + r.radius
