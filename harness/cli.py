@@ -106,7 +106,7 @@ def _reach(model):
 
 def _object_row(o):
     size = " x ".join(f"{e * 1e3:.1f}" for e in o.extents)
-    from .sim.routines import rest_height
+    from .sim.trial import rest_height
     row = {"object": o.name, "kind": o.kind, "size_mm": size, "top_mm": round(rest_height(o) * 1e3, 1),
            "mass_g": round(o.mass * 1e3, 2),
            "friction": round(o.friction, 3), "restitution": round(o.restitution, 3)}

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["SHAPES", "bite_angle", "required_mu", "roller_friction", "thinnest_part"]
+__all__ = ["SHAPES", "bite_angle", "required_mu", "roller_friction", "thinnest_part", "bite_note"]
 
 SHAPES = ("cylinder", "disc", "plate")  # lying cylinder; standing disc and plate (an edge of height h)
 
@@ -41,6 +41,18 @@ def bite_angle(shape, roller_radius, height):
 def required_mu(shape, roller_radius, height):
     """The least roller-part friction coefficient that draws the part in: tan of the bite angle."""
     return math.tan(bite_angle(shape, roller_radius, height))
+
+
+def bite_note(roller_radius, pair_mu, height, edge):
+    """Why rollers of `roller_radius` (m) resting on the surface cannot draw in a part `height` (m)
+    high (an edge, or a round part lying) at the pair friction `pair_mu`, in numbers; None if they can."""
+    shape = "disc" if edge else "cylinder"
+    need = required_mu(shape, roller_radius, height)
+    if pair_mu > need:
+        return None
+    return (f"object top {height * 1e3:.1f} mm: {roller_radius * 1e3:.0f} mm rollers on the surface meet "
+            f"{'its edge' if edge else 'it'} {math.degrees(bite_angle(shape, roller_radius, height)):.0f} deg below "
+            f"level, drawing in needs mu > {need:.2f}, the pair's mu is {pair_mu:.2f}")
 
 
 def thinnest_part(shape, roller_radius, mu):

@@ -14,7 +14,8 @@ import numpy as np
 from scipy.spatial.transform import Rotation
 
 from .steering import RollerContact, contact_jacobian, steer
-from .trial import APPROACH_CLEARANCE, TABLE_CLEARANCE, drift_of
+from .bite import bite_note
+from .trial import APPROACH_CLEARANCE, STANDING_KINDS, TABLE_CLEARANCE, drift_of, rest_height
 
 __all__ = ["approach", "inside_approach", "close", "spread", "draw_in", "lift", "hold", "shake", "pivot",
            "roll", "shift", "release", "roller_contacts", "cavity_radius", "STEER_RTOL",
@@ -578,9 +579,14 @@ def climb(ctx, p, log):
     rise = ctx.world.pose(ctx.obj)[0][2] - start
     log.note = f"climbed {rise * 1e3:.1f} mm"
     beta = -ctx.first_elevation
+    mu = float(np.mean([ctx.friction_of_link[r.roll] for r in ctx.hand.rollers]))
     if not ctx.held() and math.isfinite(beta):
-        mu = float(np.mean([ctx.friction_of_link[r.roll] for r in ctx.hand.rollers]))
         log.note += (f"; at first touch the roller contact normals were {math.degrees(beta):.0f} deg below level: "
                      f"drawing in needs mu > tan {math.degrees(beta):.0f} deg = {math.tan(beta):.2f}, "
                      f"the pair's mu is {mu:.2f}")
+    geometry = bite_note(ctx.hand.rollers[0].radius, mu, rest_height(ctx.instance), ctx.instance.kind in STANDING_KINDS)
+    if not ctx.held() and geometry:
+        # the rigid bite condition from the part's height, beside the engine's measured normals (a
+        # roller on a rim reports them steeper than the rim's geometry, measured: 74 against 61 deg)
+        log.note += f"; from geometry, {geometry}"
     return ctx.held()

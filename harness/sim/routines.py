@@ -42,8 +42,8 @@ from .phases import (
     straddle,
     touch_down,
 )
-from .bite import bite_angle, required_mu, roller_friction
-from .trial import EJECT_SPEED, STANDING_KINDS, TABLE_CLEARANCE
+from .bite import bite_note, roller_friction
+from .trial import EJECT_SPEED, STANDING_KINDS, TABLE_CLEARANCE, rest_height
 from .world import pair_friction
 
 __all__ = ["ROUTINES", "Routine", "make_routine"]
@@ -166,14 +166,8 @@ class Routine:
                     f"{model.roller_radius * 1e3:.0f} + {TABLE_CLEARANCE * 1e3:.0f} = {lowest * 1e3:.1f} mm: they would "
                     "meet only its top edge (surface-draw-in picks parts this low)")
         if first is touch_down and model.roller_radius:
-            shape = "disc" if instance.kind in STANDING_KINDS else "cylinder"  # an edge, or a round part lying
-            need = required_mu(shape, model.roller_radius, height)
             mu = pair_friction(roller_friction(model), instance.friction)
-            if mu <= need:
-                edge = "its edge" if shape == "disc" else "it"
-                return (f"object top {height * 1e3:.1f} mm: {model.roller_radius * 1e3:.0f} mm rollers on the "
-                        f"surface meet {edge} {math.degrees(bite_angle(shape, model.roller_radius, height)):.0f} deg "
-                        f"below level, drawing in needs mu > {need:.2f}, the pair's mu is {mu:.2f}")
+            return bite_note(model.roller_radius, mu, height, instance.kind in STANDING_KINDS)
         return None
 
     def labels(self):
@@ -218,12 +212,6 @@ class Routine:
             row[f"{label}_drift_mm"] = drift[0] * 1e3
             row[f"{label}_drift_deg"] = math.degrees(drift[1])
         return row
-
-
-def rest_height(instance):
-    """Height (m) of an object's top as it rests on the table (trial.TrialContext places it):
-    standing kinds on their base, the others with their smallest size vertical."""
-    return float(instance.extents[2] if instance.kind in STANDING_KINDS else min(instance.extents))
 
 
 def grasp_width(instance):

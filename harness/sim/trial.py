@@ -55,6 +55,12 @@ PRESS_GAIN = 1.7e-4
 PRESS_SPEED = 0.01  # m/s; at 0.03 the first touch spiked to 40 N against a 2 N preload (measured)
 
 
+def rest_height(instance):
+    """Height (m) of an object's top as it rests on the table (TrialContext places it): standing
+    kinds on their base, the others with their smallest size vertical."""
+    return float(instance.extents[2] if instance.kind in STANDING_KINDS else min(instance.extents))
+
+
 class Blowup(HarnessError):
     """The simulation became untrustworthy (see metrics.blowup); the trial is `invalid`."""
 
