@@ -153,7 +153,7 @@ def test_the_approach_finds_every_demo_objects_top_and_sections_from_its_collisi
     from harness.sim.engines import open_world
     from harness.sim.phases import section_widths
     from harness.sim.trial import rest_height
-    from harness.sim.trial import Perturbation, TrialContext
+    from harness.sim.trial import BOX_EXCESS, Perturbation, TrialContext
     duo = own("duo-roller")
     with open_world(PhysicsSettings()) as world:
         for set_name in ("lab-cell", "stress"):
@@ -161,10 +161,34 @@ def test_the_approach_finds_every_demo_objects_top_and_sections_from_its_collisi
                 world.reset()
                 ctx = TrialContext(world, duo, inst, Perturbation(), 0)
                 top = ctx.object_top()
-                # the part's resting height plus the engine's collision margins (hulls: 1 mm each at the
-                # table and at the top, measured), never the box's excess; a random polytope tips onto a
-                # face as it settles, lower than it was generated
+                # the part's resting height plus the engine's collision margins (hulls: 1 mm at the table
+                # and 1 mm at the top, measured), up to BOX_EXCESS more where the box is kept; a random
+                # polytope tips onto a face as it settles, lower than it was generated
                 low = 0.0 if inst.kind == "polytope" else rest_height(inst) - 0.0005
-                assert low <= top <= rest_height(inst) + 0.0025, (inst.name, top)
+                assert low <= top <= rest_height(inst) + 0.0025 + BOX_EXCESS, (inst.name, top)
+                if inst.kind == "polytope":  # its box stands 15 to 26 mm above it
+                    assert top < world.aabb(ctx.obj)[1][2] - 0.01, inst.name
                 heights = np.linspace(0.2 * top, 0.9 * top, 8)
                 assert section_widths(ctx, heights).max() > 0, f"{inst.name}: no section ray meets it"
+
+
+def test_rollers_slide_on_a_part_they_cannot_bite_and_roll_it_up_when_they_can():
+    # Below the bite condition the rollers' surfaces slide past the part: friction is used to its
+    # Coulomb limit (use = |F| / mu N = 1) and the climb's slip is about the surface speed times the
+    # time the climb waits (15 mm/s); well above it the part rolls up the rollers, sticking (use < 1,
+    # little slip). Lying 14 mm cylinders, mu = 0.7 and 1.5 tan(beta); measured at 100 it @ 480 Hz:
+    # use 0.97 / 0.59, slip 8.7 / 1.5 mm; at 400 it @ 960 Hz: 0.95 / 0.42, 8.3 / 0.07 mm.
+    import math
+
+    from harness.campaigns.envelope import EnvelopePoint, part
+    from harness.sim.bite import required_mu
+    from harness.sim.trial import Perturbation
+    h = 0.014
+    need = required_mu("cylinder", 0.012, h)
+    rows = {k: run_trial(own("duo-roller"), part(EnvelopePoint("cylinder", h, k * need), 1.0),
+                         make_routine("surface-draw-in"), Perturbation(object_yaw=math.pi / 2), seed=0)
+            for k in (0.7, 1.5)}
+    sliding, rolling = rows[0.7], rows[1.5]
+    assert sliding["outcome"] == "missed" and rolling["outcome"] == "held"
+    assert sliding["climb_friction_use_mean"] > 0.9 and sliding["climb_slip_mm"] > 5.0
+    assert rolling["climb_friction_use_mean"] < 0.8 and rolling["climb_slip_mm"] < 3.0

@@ -208,7 +208,9 @@ class Routine:
             log = logs.get(label)
             drift = log.drift if log and log.drift and in_hand else (math.nan, math.nan)
             row[f"{label}_ok"] = bool(log and log.ok)
-            row[f"{label}_slip_mm"] = log.tally.columns()["slip_mm"] if log else math.nan
+            tally = log.tally.columns() if log else {}
+            row[f"{label}_slip_mm"] = tally.get("slip_mm", math.nan)
+            row[f"{label}_friction_use_mean"] = tally.get("friction_use_mean", math.nan)
             row[f"{label}_drift_mm"] = drift[0] * 1e3
             row[f"{label}_drift_deg"] = math.degrees(drift[1])
         return row
