@@ -192,3 +192,11 @@ def test_rollers_slide_on_a_part_they_cannot_bite_and_roll_it_up_when_they_can()
     assert sliding["outcome"] == "missed" and rolling["outcome"] == "held"
     assert sliding["climb_friction_use_mean"] > 0.9 and sliding["climb_slip_mm"] > 5.0
     assert rolling["climb_friction_use_mean"] < 0.8 and rolling["climb_slip_mm"] < 3.0
+
+
+def test_a_part_taller_than_the_rollers_is_gripped_at_or_above_its_centre_without_drawing_in():
+    # a 44 mm vial's centre stands above the roller centres (12 mm) from the start: there is nothing
+    # to draw in, the rollers grip it and the lift takes it off the table
+    row = run_trial(own("duo-roller"), objects("lab-cell")["vial-2"], make_routine("surface-draw-in"), seed=0)
+    assert row["outcome"] == "held", row["reason"]
+    assert row["climb_ok"] and row["climb_slip_mm"] < 1.0

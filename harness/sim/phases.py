@@ -524,11 +524,11 @@ def straddle(ctx, p, log):
     return ok
 
 
-def _at_nip(ctx):
-    """The object's centre is level with the roller centres (or above) and off the table."""
+def _at_nip(ctx, lifted=True):
+    """The object's centre is level with the roller centres (or above) and, if `lifted`, off the table."""
     z = ctx.world.pose(ctx.obj)[0][2]
     centres = np.mean([ctx.world.link_state(ctx.hand.body, r.roll)[0][2] for r in ctx.hand.rollers])
-    return z >= centres and not ctx.on_table()
+    return z >= centres and not (lifted and ctx.on_table())
 
 
 def _rollers_touching(ctx):
@@ -564,7 +564,9 @@ def climb(ctx, p, log):
 
     def done(t):
         ctx.watch_grasp()
-        if _at_nip(ctx):
+        # a part whose centre is at or above the roller centres (taller than a roller's diameter) is
+        # already at the nip, on the table or not: nothing to draw in, grip it
+        if _at_nip(ctx, lifted=False):
             return True
         z = ctx.world.pose(ctx.obj)[0][2]
         idle[0] = 0.0 if z > best[0] + 1e-4 else idle[0] + ctx.control_dt
@@ -578,6 +580,9 @@ def climb(ctx, p, log):
     ctx.run(0.2, lambda t: ctx.watch_grasp())
     rise = ctx.world.pose(ctx.obj)[0][2] - start
     log.note = f"climbed {rise * 1e3:.1f} mm"
+    if _at_nip(ctx, lifted=False) and _rollers_touching(ctx) >= 2:
+        log.note += "; gripped at or above its centre (nothing to draw in)"
+        return True  # a tall part, still on the table: the lift takes it
     beta = -ctx.first_elevation
     mu = float(np.mean([ctx.friction_of_link[r.roll] for r in ctx.hand.rollers]))
     if not ctx.held() and math.isfinite(beta):
