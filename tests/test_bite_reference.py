@@ -84,10 +84,19 @@ def test_rollers_bite_a_ball_above_tan_alpha_and_push_it_out_below(engine, alpha
     assert pushed < -0.002, f"mu = 0.9 tan(alpha): moved {pushed * 1e3:.1f} mm, expected pushed out"
 
 
+# MuJoCo collides two parallel cylinders at one point on a roller's rim, which jumps between the
+# rim's two ends (y = -9 and +9 mm) with the normals tilted along the axis, so the line contact
+# never forms and the cylinder is pushed out even at 1.5 tan(alpha) (measured at 10, 20, 30 deg:
+# -10 to +23 mm). Strict, so a MuJoCo that forms line contacts shows here.
+MUJOCO_RIM_CONTACT = pytest.mark.xfail(strict=True, reason="MuJoCo: parallel cylinders touch at one rim point")
+
+
 @pytest.mark.parametrize("alpha_deg", [10, 20, 30])
-def test_rollers_bite_a_lying_cylinder_above_tan_alpha_and_push_it_out_below(engine, alpha_deg):
+def test_rollers_bite_a_lying_cylinder_above_tan_alpha_and_push_it_out_below(engine, alpha_deg, request):
     # the same force balance holds in the plane across a cylinder lying along the roller axes (line
     # contacts instead of point contacts); the measured switch is in the module docstring
+    if engine == "mujoco":
+        request.applymarker(MUJOCO_RIM_CONTACT)
     alpha = math.radians(alpha_deg)
     drawn, to_centres = _bite(engine, alpha, 1.2 * math.tan(alpha), shape="cylinder")
     pushed, _ = _bite(engine, alpha, 0.9 * math.tan(alpha), shape="cylinder")
