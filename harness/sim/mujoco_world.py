@@ -30,8 +30,9 @@ speed. Choices that make it pass the same reference checks as pybullet (DEVELOPE
   so the links' poses, stay the same), so the motor side never winds up and its range is the
   joint's (a wound-up side reached its limit and the jaw let go of the object),
 - the wrist: the hand's base hangs on three slides and three hinges along the world axes (at its
-  first pose), held the same way, at a fifth of the pose error per step (pybullet's fixed
-  constraint); its force limit is not modelled (500 N is far above what a grasp loads it with),
+  first pose), held the same way, each moving a fifth of its error per step toward the target
+  pose's joint values (pybullet's fixed constraint corrects a fifth of the pose error per step);
+  its force limit is not modelled (500 N is far above what a grasp loads it with),
 - semi-implicit Euler integration (everything above is a constraint; nothing needs implicit damping).
 """
 
@@ -557,7 +558,7 @@ class MujocoWorld(World):
         for k in range(6):
             kind = self.mj.mjtJoint.mjJNT_SLIDE if k < 3 else self.mj.mjtJoint.mjJNT_HINGE
             b.root.add_joint(name=f"{b.prefix}wrist{k}", type=kind, axis=list(axes[:, k % 3]))
-        b.wrist = {"ref": ref, "target": (np.array(pos), orn), "force": 0.0, "jnt": []}
+        b.wrist = {"ref": ref, "goal": self._wrist_joint_values(ref, pos, orn), "force": 0.0, "jnt": []}
         self._dirty = True
         if self.model is not None:
             self._compile()
@@ -566,58 +567,33 @@ class MujocoWorld(World):
 
     def move_wrist(self, wrist, position, orientation, max_force):
         b = self.bodies[wrist]
-        b.wrist["target"] = (np.asarray(position, dtype=float), tuple(orientation))
+        b.wrist["goal"] = self._wrist_joint_values(b.wrist["ref"], position, orientation)
         b.wrist["force"] = float(max_force)
-        if not self._dirty and self.model is not None:
-            self._apply_drives()
 
-    def _wrist_pose(self, b, d):
-        """Current (position, rotation matrix) of the body's URDF frame from its wrist joints."""
-        q = [d.qpos[adr] for adr, _, _ in b.wrist["jnt"]]
-        ref_pos, ref_orn = b.wrist["ref"]
-        rx, ry, rz = (_axis_rotation(k, q[3 + k]) for k in range(3))
-        return np.asarray(ref_pos) + q[:3], rx @ ry @ rz @ rotation(ref_orn), (rx, ry)
+    @staticmethod
+    def _wrist_joint_values(ref, position, orientation):
+        """The six wrist joints' values that put the URDF frame at a pose: the slides are the offset
+        from the reference position, the hinges the intrinsic x-y-z angles of the turn from the
+        reference orientation (the body turns by Rx Ry Rz in front of its reference)."""
+        from scipy.spatial.transform import Rotation
+        turn = rotation(orientation) @ rotation(ref[1]).T
+        return [*(np.asarray(position, dtype=float) - ref[0]), *Rotation.from_matrix(turn).as_euler("XYZ")]
 
     def _set_wrist_joints(self, b, pos, orn):
-        from scipy.spatial.transform import Rotation
         d = self.data
-        rel = rotation(orn) @ rotation(b.wrist["ref"][1]).T
-        angles = Rotation.from_matrix(rel).as_euler("XYZ")
-        values = [*(np.asarray(pos) - b.wrist["ref"][0]), *angles]
-        for (qadr, dadr, _), value in zip(b.wrist["jnt"], values):
+        for (qadr, dadr, _), value in zip(b.wrist["jnt"], self._wrist_joint_values(b.wrist["ref"], pos, orn)):
             d.qpos[qadr] = value
             d.qvel[dadr] = 0.0
 
     def _servo_wrist(self, b, m, d, dt, lead):
-        w = b.wrist
-        pos, rot, (rx, ry) = self._wrist_pose(b, d)
-        target_pos, target_orn = w["target"]
-        v = WRIST_ERP * (target_pos - pos) / dt
-        spin = WRIST_ERP * _rotvec(rotation(target_orn) @ rot.T) / dt
-        axes = np.column_stack([np.eye(3)[:, 0], rx[:, 1], rx @ ry[:, 2]])
-        rates = np.linalg.solve(axes, spin)
-        for (qadr, _, eq), value in zip(w["jnt"], [*v, *rates]):
-            m.eq_data[eq, 0] = d.qpos[qadr] + value * lead
+        """Each wrist joint moves a fifth of its error per step toward the goal pose's value (for
+        the small turns a wrist makes, the same as correcting the pose error in space)."""
+        for (qadr, _, eq), goal in zip(b.wrist["jnt"], b.wrist["goal"]):
+            q = d.qpos[qadr]
+            m.eq_data[eq, 0] = q + WRIST_ERP * (goal - q) / dt * lead
 
     def camera_image(self, width, height, view, projection):
         raise HarnessError("rendered replay frames need the pybullet engine (replay without frames works on mujoco)")
-
-
-def _axis_rotation(k, angle):
-    c, s = math.cos(angle), math.sin(angle)
-    if k == 0:
-        return np.array([[1, 0, 0], [0, c, -s], [0, s, c]])
-    if k == 1:
-        return np.array([[c, 0, s], [0, 1, 0], [-s, 0, c]])
-    return np.array([[c, -s, 0], [s, c, 0], [0, 0, 1]])
-
-
-def _rotvec(r):
-    """Rotation vector (axis x angle) of a rotation matrix (angles below pi)."""
-    skew = np.array([r[2, 1] - r[1, 2], r[0, 2] - r[2, 0], r[1, 0] - r[0, 1]]) / 2
-    sin = float(np.linalg.norm(skew))
-    angle = math.atan2(sin, (np.trace(r) - 1) / 2)
-    return skew * (angle / sin if sin > 1e-12 else 1.0)
 
 
 def _driven(joint):
