@@ -32,9 +32,6 @@ class BulletWorld(World):
         self.cid = p.connect(p.DIRECT)
         self.reset()
 
-    def version(self):
-        return f"pybullet {self.p.getAPIVersion()}"
-
     def reset(self):
         """Empty the world and apply the settings again (resetSimulation forgets them)."""
         p, s = self.p, self.settings

@@ -60,8 +60,7 @@ WRIST_ERP = 0.2  # share of the wrist's pose error corrected per step (pybullet'
 RIGID_STEPS = 2.0  # rigid contact time constant in steps (MuJoCo's advised minimum)
 IMPRATIO = 10.0  # friction-to-normal impedance ratio: stiffer static friction with elliptic cones
 NOSLIP_ITERATIONS = 10
-SOLIMP = [0.95, 0.99, 0.001, 0.5, 2.0]
-MARGIN = 0.0
+CONTACT_SOLIMP = [0.95, 0.99, 0.001, 0.5, 2.0]  # contact impedance: 0.95 at first touch, 0.99 past 1 mm
 
 
 def _wxyz(q):
@@ -88,7 +87,10 @@ class _Body:
     joints: list  # JointInfo per link index >= 0
     fixed: bool
     geoms: list = field(default_factory=list)  # (geom name, link index)
-    wrist: dict | None = None  # the wrist's reference pose, axes and target once added
+    link_of_name: dict = field(default_factory=dict)  # URDF link name -> link index
+    origin: tuple = ((0.0, 0.0, 0.0), (0.0, 0.0, 0.0, 1.0))  # the pose it was loaded at (its URDF frame)
+    root: object = None  # its base in the model spec
+    wrist: dict | None = None  # the wrist's reference pose, joints and goal once added
     jnt: dict = field(default_factory=dict)  # joint index -> (qpos, dof of the joint; qpos, dof, equality of its motor side)
 
 
@@ -124,9 +126,6 @@ class MujocoWorld(World):
         self.mj = mujoco
         self.model = self.data = None
         self.reset()
-
-    def version(self):
-        return f"mujoco {self.mj.__version__}"
 
     def reset(self):
         mj, s = self.mj, self.settings
@@ -167,7 +166,7 @@ class MujocoWorld(World):
         body.root = root
         if not body.fixed:
             root.add_freejoint(name=body.prefix + "free")
-        for k, sb in enumerate(self._spec_bodies(root)):
+        for sb in self._spec_bodies(root):
             link = body.link_of_name[sb.name[len(body.prefix):]]
             for n, geom in enumerate(sb.geoms):
                 geom.name = f"{body.prefix}{link}_{n}"
@@ -192,13 +191,11 @@ class MujocoWorld(World):
         prefix = f"b{len(self.bodies)}/"
         links = {-1: _Link(base)}
         links.update({k: _Link(j.link_name) for k, j in enumerate(joints)})
-        body = _Body(prefix, links, joints, fixed)
-        body.link_of_name = {link.name: k for k, link in links.items()}
+        body = _Body(prefix, links, joints, fixed, link_of_name={link.name: k for k, link in links.items()})
         for sb in child.bodies[1:]:
             link = links[body.link_of_name[sb.name]]
             link.inertial = (tuple(sb.ipos), _xyzw(sb.iquat))
             link.mass = float(sb.mass)
-        body.joint_names = {j.name: k for k, j in enumerate(joints)}
         index = self._add(body, child.body(base), position, orientation)
         self._clutches(body)
         return index
@@ -232,9 +229,7 @@ class MujocoWorld(World):
         box.add_geom(type=mj.mjtGeom.mjGEOM_BOX, size=[s / 2 for s in size], pos=[0, 0, -size[2] / 2])
         orn = (0.0, math.sin(tilt / 2), 0.0, math.cos(tilt / 2))
         links = {-1: _Link("table")}
-        body = _Body(f"b{len(self.bodies)}/", links, [], True)
-        body.link_of_name = {"table": -1}
-        body.joint_names = {}
+        body = _Body(f"b{len(self.bodies)}/", links, [], True, link_of_name={"table": -1})
         self.table = self._add(body, box, (0.0, 0.0, top), orn)
         self.set_surface(self.table, -1, self.settings.table_friction if friction is None else friction,
                          rolling=rolling)
@@ -288,7 +283,7 @@ class MujocoWorld(World):
         solref = [timeconst, 1.0]
         condim = 6 if roll > 0 else (4 if spin > 0 else 3)
         spec.add_pair(geomname1=ga, geomname2=gb, condim=condim, friction=[mu, mu, spin, roll, roll],
-                      solref=solref, solimp=SOLIMP, margin=MARGIN, gap=0.0)
+                      solref=solref, solimp=CONTACT_SOLIMP, margin=0.0, gap=0.0)
 
     def _speed_constraints(self):
         """A joint equality on every motor side and wrist joint; step() moves their references."""

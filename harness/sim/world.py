@@ -117,8 +117,7 @@ class World:
         raise NotImplementedError(f"{type(self).__name__} does not implement this operation")
 
     # lifetime
-    reset = close = _todo  # reset(): empty the world, apply the settings again
-    version = _todo  # version(): the engine's name and version, for the run record
+    reset = close = _todo  # reset(): empty the world, apply the settings again (engines.engine_version names it)
 
     # bodies and materials
     load = _todo  # load(urdf_path, position, orientation, fixed=False, implicit_cylinders=True) -> body;
