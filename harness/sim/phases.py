@@ -520,7 +520,7 @@ def straddle(ctx, p, log):
     if not ok:
         top = ctx.object_top()
         log.note += (f"; object top {top * 1e3:.1f} mm, roller lowest points {_roller_low(ctx) * 1e3:.1f} mm "
-                     "above the table")
+                     f"above the table, their inner surfaces {2 * _roller_inner_radius(ctx) * 1e3:.1f} mm apart")
     return ok
 
 
