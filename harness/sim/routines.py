@@ -62,7 +62,7 @@ class Params:
                                doc="where the fingertips meet the object, as a share of its height")
     grip_torque: float = param("grip_torque_share", gt=0, le=1, default=1.0, doc="share of the closing motors' limit")
     close_s: float = param("close_s", gt=0, default=None,
-                           doc="longest closing time; default: the fingers' full travel time plus 0.3 s")
+                           doc="longest closing time; default: the fingers' free closing time over their whole travel plus 0.3 s")
     lift: float = param("lift_mm", unit="mm", gt=0, default=0.06)
     lift_s: float = param("lift_s", gt=0, default=0.6)
     hold_s: float = param("hold_s", gt=0, default=1.0)
