@@ -45,7 +45,7 @@ def ball_between_rollers(world, model, ball, below_palm=0.095, hand_height=0.3, 
     from harness.sim.hand import Hand
     hand = Hand(world, model, (0, 0, hand_height))
     body = add_object(world, ball, (0, 0, hand_height - below_palm), fixed=fixed)
-    for _ in range(120):
+    for _ in range(round(0.25 / world.settings.time_step)):  # 0.25 s, whatever the physics step
         hand.close()
         world.step()
     return hand, body

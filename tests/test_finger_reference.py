@@ -21,7 +21,7 @@ def test_finger_presses_with_torque_over_lever(engine, torque):
         hand = Hand(w, model, (0, 0, 0.3))
         box = one_object("box", size_x_mm=40, size_y_mm=40, size_z_mm=40, mass_g=50, friction=1.0)
         block = add_object(w, box, (0, 0, 0.3 - 0.092), fixed=True)
-        for _ in range(240):
+        for _ in range(round(0.5 / w.settings.time_step)):  # 0.5 s, whatever the physics step
             hand.close()
             w.step()
         joint = hand.close_j[0]

@@ -23,7 +23,7 @@ def test_two_counter_rotating_rollers_draw_a_ball_in_at_w_r(engine, speed):
         rollers = [hand.link_of[f"finger{i}_roller"] for i in range(2)]
         hand.set_rollers(speed)
         rel_speed, surface, slips = [], [], []
-        for _ in range(60):
+        for _ in range(round(0.125 / w.settings.time_step)):  # 0.125 s, whatever the physics step
             hand.close()
             w.step()
             states = [w.link_state(hand.body, link) for link in rollers]
