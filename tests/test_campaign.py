@@ -214,6 +214,11 @@ name = "draw-in-grasp"
 object_xy_mm = 2
 yaw_deg = 30
 friction_scale = [0.8, 1.2]
+
+# these tests check records, workers and resumption, not physics: light numerics keep them quick
+[physics]
+solver_iterations = 50
+step_hz = 480
 """
 
 SET = """
@@ -451,7 +456,8 @@ def _wait_for_rows(out, n, proc, limit=60):
 def longer(tmp_path):
     shutil.copy(REPO / DUO, tmp_path / "duo.toml")
     (tmp_path / "set.toml").write_text(SET)
-    return write(tmp_path, TINY.replace("trials = 2", "trials = 8"), "longer.toml")
+    # long enough (80 trials of about 0.1 s) that Ctrl-C lands mid-run
+    return write(tmp_path, TINY.replace("trials = 2", "trials = 40"), "longer.toml")
 
 
 def test_ctrl_c_exits_130_with_a_resume_hint_and_kill_9_loses_nothing_recorded(longer, tmp_path):
@@ -469,7 +475,7 @@ def test_ctrl_c_exits_130_with_a_resume_hint_and_kill_9_loses_nothing_recorded(l
     proc.communicate(timeout=60)
     assert run_campaign(longer, resume=folder, workers=2, progress=False, echo=lambda *a, **k: None) == 0
     with sqlite3.connect(folder / "journal.sqlite") as db:
-        assert db.execute("SELECT COUNT(*), COUNT(DISTINCT trial_key) FROM trials").fetchone() == (16, 16)
+        assert db.execute("SELECT COUNT(*), COUNT(DISTINCT trial_key) FROM trials").fetchone() == (80, 80)
     reference = _run(longer, tmp_path / "whole", workers=2)
     _same_rows(load_run(folder), load_run(reference))
 

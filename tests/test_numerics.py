@@ -94,9 +94,9 @@ def test_slip_distance_of_transients_matches_a_per_step_integral(gripper_name, o
     assert checked >= 2, per_phase
 
 
-@pytest.mark.parametrize("obj", ["ball", "vial-2"])
-def test_a_static_grasp_holds_still_and_its_braked_rollers_do_not_creep(obj):
-    # Nominal duo-roller draw-in grasp: over the hold the object must not slip (< 0.05 mm) nor
+@pytest.mark.parametrize("obj, routine", [("ball", "draw-in-grasp"), ("vial-1", "pinch-lift")])
+def test_a_static_grasp_holds_still_and_its_braked_rollers_do_not_creep(obj, routine):
+    # Nominal duo-roller grasps: over the hold the object must not slip (< 0.05 mm) nor
     # drift (< 0.01 mm), and the braked rollers (commanded speed 0, torque limit far above the
     # load) must not turn: their surfaces move < 0.01 mm. Before the brake held position, a
     # stopped roller crept 2.5 mm under the ball in a 1 s hold at 100 iterations (issue figure).
@@ -108,7 +108,10 @@ def test_a_static_grasp_holds_still_and_its_braked_rollers_do_not_creep(obj):
             angles.append(ctx.hand.joint_positions(ctx.hand.roll_j))
 
     model = gripper("duo-roller", "duo-roller[finger.roller.radius_mm=12]")
-    row = observed_trial(model, object_set("lab-cell")[obj], make_routine("draw-in-grasp"), each)
+    # Both outcomes hold at 100 and 400 it, 960 and 1920 Hz. A vial's draw-in grasp does not: the
+    # rollers squeeze it out of their nip into the palm, and whether it lands seated flips with the
+    # step (vial-2: held, missed, dropped, missed, held from 100 it @ 480 Hz to 400 it @ 1920 Hz).
+    row = observed_trial(model, object_set("lab-cell")[obj], make_routine(routine), each)
     assert row["outcome"] == "held", row["reason"]
     assert row["hold_slip_mm"] < 0.05
     assert row["hold_drift_mm"] < 0.01

@@ -91,9 +91,12 @@ def test_pinch_lift_baseline_runs_on_the_jaw_and_roller_routines_do_not():
 
 
 @pytest.mark.parametrize("name", ["duo-roller", "scissor-roller"])
+@pytest.mark.xfail(strict=True, reason="held only at 480 Hz: at 960 and 1920 Hz (100 and 400 it) both hands spread "
+                   "against the wall and the cup stays on the table (lift raises it 0.0 mm); the 480 Hz hold "
+                   "measured the solver, and why the spread grip slides at finer steps is not yet known")
 def test_inside_grasp_holds_a_cup_from_inside(name):
     # Fingers pre-shaped to fit the bore, lowered into the cup and spread against its inner wall
-    # lift it and hold it (a 60 mm cup with 4 mm walls; measured drift under 1 mm).
+    # lift it and hold it (a 60 mm cup with 4 mm walls; measured drift under 1 mm at 480 Hz).
     cup = one_object("cup", outer_radius_mm=30, wall_mm=4, height_mm=45, base_mm=3, density_kg_m3=1200, friction=0.5)
     row = run_trial(gripper(name), cup, make_routine("inside-grasp"), seed=0)
     assert row["outcome"] == "held", row["reason"]

@@ -40,7 +40,7 @@ class PhysicsSettings:
     recorded in the README (`grasp-harness converge`): the cheapest setting whose campaign results
     agree with much finer numerics within the tolerances of analysis/numerics.py."""
 
-    step_hz: int = 480  # physics steps per second; a multiple of CONTROL_HZ
+    step_hz: int = 960  # physics steps per second; a multiple of CONTROL_HZ
     solver_iterations: int = 100  # constraint-solver iterations per step
     gravity: float = GRAVITY  # m/s^2 along -z
     max_joint_speed: float = 1000.0  # rad/s; lifts the engine's 100 rad/s cap so roller limits come from specs
