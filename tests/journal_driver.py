@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import signal
 import subprocess
 import sys
 import time
@@ -51,7 +52,14 @@ def main(argv=None) -> int:
 def start_driver(run_dir, n: int, *, sleep: float = 0.0, workers: int = 2, options=(), **popen):
     return subprocess.Popen([sys.executable, __file__, str(run_dir), str(n), "--sleep", str(sleep),
                              "--workers", str(workers), *options],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, **popen)
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=ctrl_c_as_in_a_terminal, **popen)
+
+
+def ctrl_c_as_in_a_terminal():
+    """Give a child the default Ctrl-C: a test suite started in the background of a non-interactive
+    shell ignores SIGINT, and its children would inherit that (POSIX job control)."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
 
 
 def wait_for_count(run_dir, at_least: int, driver, limit_s: float = 60.0) -> int:

@@ -19,6 +19,7 @@ import pytest
 from harness.campaigns.campaign import PerturbationRanges, expand, load_campaign
 from harness.commands.campaign import run_campaign
 from harness.cli import main
+from journal_driver import ctrl_c_as_in_a_terminal
 from harness.errors import HarnessError, SpecError
 from harness.models.fields import Span
 from harness.campaigns.journal import Journal, read_events
@@ -434,7 +435,7 @@ def _start(campaign, out, *extra):
     import sys
     return subprocess.Popen([sys.executable, "-m", "harness.cli", "run", str(campaign), "--out", str(out),
                              "--workers", "2", *extra], cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                            text=True)
+                            text=True, preexec_fn=ctrl_c_as_in_a_terminal)
 
 
 def _wait_for_rows(out, n, proc, limit=60):
