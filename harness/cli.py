@@ -16,7 +16,7 @@ def _parser():
         epilog=SAFETY)
     p.add_argument("--version", action="version", version=f"grasp-harness {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    c = sub.add_parser("check", help="validate gripper specs and object sets")
+    c = sub.add_parser("check", help="validate gripper specs, object sets and campaigns")
     c.add_argument("files", nargs="+", metavar="FILE")
     b = sub.add_parser("build", help="write the URDFs and meshes of a spec or object set")
     b.add_argument("file", metavar="FILE")
@@ -119,19 +119,32 @@ def _object_row(o):
 
 def cmd_check(args):
     from .errors import SpecError
-    from .models.specs import load_any
     failed = 0
     for f in args.files:
         try:
-            spec = load_any(f)
+            what = _check_one(f)
         except SpecError as exc:
             print(f"error: {exc}", file=sys.stderr)
             failed += 1
             continue
-        n = len(spec.variants) if hasattr(spec, "variants") else sum(e.count for e in spec.entries)
-        what = "variant(s)" if hasattr(spec, "variants") else "object instance(s) before folders"
-        print(f"ok: {f} ({n} {what})")
+        print(f"ok: {f} ({what})")
     return 2 if failed else 0
+
+
+def _check_one(path):
+    """Load a gripper spec, an object set or a campaign (it has [[gripper]] or [[routine]] tables)
+    as the run would, and say what it holds."""
+    from .models.sources import load_toml
+    from .models.specs import load_any
+    raw = load_toml(path)
+    if "gripper" in raw or "routine" in raw:
+        from .campaigns.campaign import expand, load_campaign
+        expansion = expand(load_campaign(path))
+        return f"campaign of {len(expansion.tasks)} trial(s), {expansion.skipped} skipped as unsuited"
+    spec = load_any(path)
+    if hasattr(spec, "variants"):
+        return f"{len(spec.variants)} variant(s)"
+    return f"{sum(e.count for e in spec.entries)} object instance(s) before folders"
 
 
 def cmd_build(args):

@@ -322,6 +322,15 @@ def test_timed_out_trials_are_complete_rows(tiny, tmp_path):
     assert row["routine"] == "draw-in-grasp" and not row["success"] and "time limit" in row["error"]
 
 
+def test_check_reads_a_campaign_as_a_campaign(tiny, tmp_path, capsys):
+    # (it read campaigns as object sets: "field 'perturbation' is not a known key")
+    assert main(["check", str(tiny)]) == 0
+    assert "campaign of 4 trial(s), 0 skipped as unsuited" in capsys.readouterr().out
+    bad = write(tmp_path, tiny.read_text().replace("trials = 2", "trials = -1"), "bad.toml")
+    assert main(["check", str(bad)]) == 2
+    assert "'trials'" in capsys.readouterr().err
+
+
 def test_cli_plan_and_export(tiny, tmp_path, capsys):
     assert main(["plan", str(tiny), "--workers", "2"]) == 0
     out = capsys.readouterr().out
