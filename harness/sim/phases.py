@@ -168,9 +168,9 @@ def close(ctx, p, log):
     log.note = f"{ctx.tips_touching()} fingertips touching"
     if not ok:
         log.note += f"; object top {top * 1e3:.1f} mm, fingertip centres {tips * 1e3:.1f} mm above the table as they closed"
-        centres = [float(ctx.world.link_state(ctx.hand.body, r.roll)[0][2]) for r in ctx.hand.rollers]
-        if centres and min(centres) > top:
-            log.note += (f"; the roller centres rose to {min(centres) * 1e3:.1f} mm, above its top: they meet only "
+        centres = _roller_heights(ctx)
+        if len(centres) and centres.min() > top:
+            log.note += (f"; the roller centres rose to {centres.min() * 1e3:.1f} mm, above its top: they meet only "
                          "its top edge (surface-draw-in picks parts this low)")
     return ok
 
@@ -453,15 +453,16 @@ def touch_down(ctx, p, log):
     """Fingers pre-shaped so the rollers straddle the object; the hand comes down until its rollers
     press the table with the preload (measured roller-table force, held by the wrist's servo)."""
     clear = _object_reach(ctx) + STRADDLE_CLEARANCE
+    steps = 40  # closing fractions probed: 0, 1/40, ..., 1
     fits, radii = [], []
-    for fraction in np.linspace(0.0, 1.0, 41):
+    for fraction in np.linspace(0.0, 1.0, steps + 1):
         ctx.hand.reset_joints(fraction)
         radii.append(_roller_inner_radius(ctx))
         if radii[-1] >= clear:
             fits.append(float(fraction))
     ctx.preshape = max(fits) if fits else 0.0  # the most closed pose that still clears the object
     # closing rate (share of the range per s) that moves the rollers inward at STRADDLE_SPEED
-    ctx.straddle_rate = STRADDLE_SPEED / max(float(np.max(-np.diff(radii))) * 40, 1e-6)
+    ctx.straddle_rate = STRADDLE_SPEED / max(float(np.max(-np.diff(radii))) * steps, 1e-6)
     ctx.hand.reset_joints(ctx.preshape)
     frame = ctx.hand.frame()
     low = max(float(ctx.hand.to_hand(ctx.world.link_state(ctx.hand.body, r.roll)[0], frame)[2]) + r.radius
@@ -527,17 +528,21 @@ def straddle(ctx, p, log):
 def _at_nip(ctx, lifted=True):
     """The object's centre is level with the roller centres (or above) and, if `lifted`, off the table."""
     z = ctx.world.pose(ctx.obj)[0][2]
-    centres = np.mean([ctx.world.link_state(ctx.hand.body, r.roll)[0][2] for r in ctx.hand.rollers])
-    return z >= centres and not (lifted and ctx.on_table())
+    return z >= _roller_heights(ctx).mean() and not (lifted and ctx.on_table())
 
 
 def _rollers_touching(ctx):
     return len(ctx.touching_links() & {r.roll for r in ctx.hand.rollers})
 
 
+def _roller_heights(ctx):
+    """Heights (m) of the roller centres above the table top (z = 0), one per roller."""
+    return np.array([float(ctx.world.link_state(ctx.hand.body, r.roll)[0][2]) for r in ctx.hand.rollers])
+
+
 def _roller_low(ctx):
     """Height (m) of the lowest roller point above the table top (z = 0)."""
-    return min(float(ctx.world.link_state(ctx.hand.body, r.roll)[0][2]) - r.radius for r in ctx.hand.rollers)
+    return float(np.min(_roller_heights(ctx) - [r.radius for r in ctx.hand.rollers]))
 
 
 def contact_elevation(ctx):
