@@ -141,7 +141,7 @@ def _check_one(path):
         from .campaigns.campaign import expand, load_campaign
         expansion = expand(load_campaign(path))
         return f"campaign of {len(expansion.tasks)} trial(s), {expansion.skipped} skipped as unsuited"
-    spec = load_any(path)
+    spec = load_any(path, raw)
     if hasattr(spec, "variants"):
         return f"{len(spec.variants)} variant(s)"
     return f"{sum(e.count for e in spec.entries)} object instance(s) before folders"

@@ -149,9 +149,10 @@ def load_gripper(path, raw=None):
     return GripperSpec(path, str(name), raw["family"], description, tuple(variants), own)
 
 
-def load_any(path):
-    """Load a gripper spec (has `family`) or an object set (has [[object]])."""
-    raw = load_toml(path)
+def load_any(path, raw=None):
+    """Load a gripper spec (has `family`) or an object set (has [[object]]); `raw`: the file's
+    table when the caller has read it already."""
+    raw = load_toml(path) if raw is None else raw
     if "family" in raw:
         return load_gripper(path, raw)
     if "object" in raw or "seed" in raw:
