@@ -17,7 +17,7 @@ from math import sqrt
 
 import numpy as np
 
-__all__ = ["ContactSample", "sample_contacts", "worst_slip_speed", "MIN_LOAD"]
+__all__ = ["ContactSample", "sample_contacts", "add_link_slips", "step_slips", "worst_displacement", "MIN_LOAD"]
 
 MIN_LOAD = 1e-6  # N; a link pressing less than this carries no defined slip or friction use
 
@@ -106,13 +106,34 @@ def sample_contacts(world, obj, other, obj_state=None):
     return ContactSample(a[:, 0:3], a[:, 3:6], a[:, 6], a[:, 7:10], a[:, 10:13], a[:, 13].astype(int), a[:, 14])
 
 
-def worst_slip_speed(world, obj, other):
-    """The largest link's slip speed (m/s; normal-force-weighted mean over its points, links with at
-    most MIN_LOAD skipped), as metrics.contact_load computes it from a sample, without building one:
+def add_link_slips(rows, dt, into):
+    """Add each link's slip displacement over `dt` seconds to `into` ({link: [x, y, z]}): its slip
+    velocity (the normal-force-weighted mean over its points, links with at most MIN_LOAD skipped,
+    as metrics.contact_load weighs slip speeds) times dt. `rows` are (link, normal force, slip
+    velocity) of each contact: step_slips after a physics step, or a ContactSample's. Summed as
+    vectors over a control tick, a contact that vibrates in place adds nothing. Plain floats, as
     it runs after every physics step."""
     sums = {}
-    for c, (sx, sy, sz) in _slips(world, obj, other, None):
-        s = sums.setdefault(c[4], [0.0, 0.0])
-        s[0] += c[9]
-        s[1] += c[9] * sqrt(sx * sx + sy * sy + sz * sz)
-    return max((weighted / total for total, weighted in sums.values() if total > MIN_LOAD), default=0.0)
+    for link, fn, (sx, sy, sz) in rows:
+        s = sums.setdefault(link, [0.0, 0.0, 0.0, 0.0])
+        s[0] += fn
+        s[1] += fn * sx
+        s[2] += fn * sy
+        s[3] += fn * sz
+    for link, (total, x, y, z) in sums.items():
+        if total > MIN_LOAD:
+            d = into.setdefault(link, [0.0, 0.0, 0.0])
+            d[0] += x / total * dt
+            d[1] += y / total * dt
+            d[2] += z / total * dt
+
+
+def step_slips(world, obj, other):
+    """(link, normal force, slip velocity) of each loaded contact of obj with other, without
+    building a ContactSample (add_link_slips takes them)."""
+    return [(c[4], c[9], slip) for c, slip in _slips(world, obj, other, None)]
+
+
+def worst_displacement(moved):
+    """The largest link's slip distance (m) from add_link_slips's {link: displacement}."""
+    return max((sqrt(x * x + y * y + z * z) for x, y, z in moved.values()), default=0.0)

@@ -4,10 +4,12 @@ Slip (see contact.py for how each contact's slip velocity is measured): at each 
 links touching the object are taken one by one; a link's slip speed is the normal-force-weighted
 mean over its contact points (one patch of a pad reports up to four manifold points: summing them
 would count one sliding patch four times). The sample's slip speed is the largest link's, i.e. the
-worst contact; the peak is its maximum (both at the control ticks). Slip distance integrates the
-worst link's slip speed over every physics step while the grasp can change (trial.TrialContext.tick,
-contact.worst_slip_speed), and the slipping share is the part of the contact time whose mean slip
-speed over a control interval exceeds SLIP_NOISE_FLOOR.
+worst contact; the peak is its maximum (both at the control ticks). Slip distance integrates each
+link's slip velocity over every physics step while the grasp can change, as a vector over each
+control tick, and adds the largest link's displacement per tick (trial.TrialContext.tick,
+contact.add_link_slips): a contact vibrating in place within a tick adds nothing, and a slip that
+reverses within one tick (1/60 s) counts only its net travel. The slipping share is the part of the
+contact time whose mean slip speed over a control interval exceeds SLIP_NOISE_FLOOR.
 
 Friction use of a link is |sum of its friction forces| / (mu x sum of its normal forces): 1 means
 the contact is on the edge of its friction cone (sliding or about to). Mean over contact time and
