@@ -48,11 +48,6 @@ class ContactSample:
         return np.linalg.norm(self.slip, axis=1)
 
 
-def _mover(com, v, w, dt):
-    """A body's motion as plain floats: start-of-step com, velocity and spin (see module doc)."""
-    return [com[i] - v[i] * dt for i in range(3)], v, w
-
-
 _EMPTY = ContactSample(*(np.zeros((0, 3)),) * 2, np.zeros(0), np.zeros((0, 3)), np.zeros((0, 3)),
                        np.zeros(0, dtype=int), np.zeros(0))
 
@@ -68,16 +63,14 @@ def _slips(world, obj, other, obj_state):
     if not raw:
         return ()
     dt = world.settings.time_step
-    com, _, v, w = obj_state or world.raw_state(obj, -1)
-    body = _mover(com, v, w, dt)
-    movers = {}
-    for link, state in world.raw_states(other, {c[4] for c in raw}).items():
-        movers[link] = _mover(state[0], state[2], state[3], dt)
-    (ax, ay, az), (avx, avy, avz), (awx, awy, awz) = body
+    (cx, cy, cz), _, (avx, avy, avz), (awx, awy, awz) = obj_state or world.raw_state(obj, -1)
+    ax, ay, az = cx - avx * dt, cy - avy * dt, cz - avz * dt  # start-of-step com (module doc)
+    movers = {link: (com[0] - v[0] * dt, com[1] - v[1] * dt, com[2] - v[2] * dt, *v, *w)
+              for link, (com, _, v, w) in world.raw_states(other, {c[4] for c in raw}).items()}
     out = []
     for c in raw:
         a, b, n = c[5], c[6], c[7]  # normal on B points from B into A: into the object
-        (bx, by, bz), (bvx, bvy, bvz), (bwx, bwy, bwz) = movers[c[4]]
+        bx, by, bz, bvx, bvy, bvz, bwx, bwy, bwz = movers[c[4]]
         # each body's material point is taken on its own surface, against its start-of-step com
         rx, ry, rz = a[0] - ax, a[1] - ay, a[2] - az
         sx, sy, sz = b[0] - bx, b[1] - by, b[2] - bz
@@ -131,7 +124,7 @@ def add_link_slips(rows, dt, into):
 def step_slips(world, obj, other):
     """(link, normal force, slip velocity) of each loaded contact of obj with other, without
     building a ContactSample (add_link_slips takes them)."""
-    return [(c[4], c[9], slip) for c, slip in _slips(world, obj, other, None)]
+    return ((c[4], c[9], slip) for c, slip in _slips(world, obj, other, None))
 
 
 def worst_displacement(moved):
