@@ -28,6 +28,7 @@ import time
 from pathlib import Path
 
 from ..constants import ENGINES
+from ..errors import HarnessError
 
 __all__ = ["register", "stratified", "run_at", "converge", "crosscheck"]
 
@@ -239,14 +240,12 @@ def crosscheck(run, *, sample=0.25, iterations=None, step=None, engine=None, cam
     done = load_run(run)
     tasks = stratified(expand(campaign).tasks, share=sample, keys=set(done["trial_key"]))
     if not tasks:
-        from ..errors import HarnessError
         raise HarnessError(f"{run} has no recorded trial to crosscheck")
     base = payload_settings(tasks[0].payload)
     kind = "engine" if engine else "numerics"
     iterations, step = iterations or (1 if engine else 4), step or (1 if engine else 2)
     fine = base.refined(iterations, step)
     if engine:
-        from ..errors import HarnessError
         from ..sim.engines import engine_available
         if engine == base.engine:
             raise HarnessError(f"{run} ran on {engine} already; --engine names the other engine ({', '.join(ENGINES)})")
@@ -294,7 +293,6 @@ def cmd_converge(args):
 
 
 def cmd_crosscheck(args):
-    from ..errors import HarnessError
     try:
         crosscheck(args.run, sample=args.sample, iterations=args.iterations, step=args.step, engine=args.engine,
                    campaign_file=args.campaign, workers=args.workers)

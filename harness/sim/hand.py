@@ -183,6 +183,13 @@ class Hand:
         pos, rot = frame or self.frame()
         return (np.asarray(x) - pos) @ rot
 
+    def roller_reach(self, frame=None):
+        """Depth (m) of the lowest roller point below the palm, in the hand frame: the deepest roller
+        centre plus its radius."""
+        frame = frame or self.frame()
+        return max(float(self.to_hand(self.world.link_state(self.body, r.roll)[0], frame)[2]) + r.radius
+                   for r in self.rollers)
+
     def link_box(self, link, frame=None):
         """The 8 corners (8, 3) of a link's world-aligned collision box, in the hand frame."""
         lo, hi = self.world.aabb(self.body, link)

@@ -464,11 +464,8 @@ def touch_down(ctx, p, log):
     # closing rate (share of the range per s) that moves the rollers inward at STRADDLE_SPEED
     ctx.straddle_rate = STRADDLE_SPEED / max(float(np.max(-np.diff(radii))) * steps, 1e-6)
     ctx.hand.reset_joints(ctx.preshape)
-    frame = ctx.hand.frame()
-    low = max(float(ctx.hand.to_hand(ctx.world.link_state(ctx.hand.body, r.roll)[0], frame)[2]) + r.radius
-              for r in ctx.hand.rollers)  # depth of the lowest roller point below the palm
     start = ctx.wrist_for_grip_height(0.0)
-    start[2] = low + TOUCH_HEIGHT + ctx.pert.wrist_dz
+    start[2] = ctx.hand.roller_reach() + TOUCH_HEIGHT + ctx.pert.wrist_dz
     ctx.hand.teleport(start, ctx.wrist_orientation)
     ctx.grip = (ctx.preshape, p.close_share)
     ctx.wrist_goal = start

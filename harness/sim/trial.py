@@ -250,10 +250,7 @@ class TrialContext:
         # four stiff rollers in a limit cycle (0, 52, 13 N against a 2 N preload, measured)
         rate = PRESS_GAIN * (load - self.press) if self.press_touched else -PRESS_SPEED
         self.press_offset += min(max(rate, -PRESS_SPEED), PRESS_SPEED) * self.control_dt
-        frame = self.hand.frame()
-        low = max(float(self.hand.to_hand(self.world.link_state(self.hand.body, r.roll)[0], frame)[2]) + r.radius
-                  for r in self.hand.rollers)
-        self.wrist_goal = np.array([*self.wrist_goal[:2], low + self.press_offset])
+        self.wrist_goal = np.array([*self.wrist_goal[:2], self.hand.roller_reach() + self.press_offset])
         self.move_wrist(self.wrist_goal)
 
     def _actuate(self):
