@@ -154,3 +154,12 @@ def test_crosscheck_on_the_other_engine_flags_engine_sensitive_cells_apart_from_
         assert "numerics- or engine-sensitive" in capsys.readouterr().out
     with pytest.raises(Exception, match="ran on pybullet already"):
         crosscheck(run, engine="pybullet", progress=False, echo=quiet)
+
+
+@pytest.mark.parametrize("option, value", [("--iterations", "100,x"), ("--step-hz", "0,960"), ("--iterations", "")])
+def test_converge_refuses_a_setting_list_that_is_not_whole_numbers_before_any_trial(tmp_path, capsys, option, value):
+    # one clear error naming the option, and no run folder written
+    assert main(["converge", str(REPO / "campaigns/quickstart.toml"), option, value, "--out", str(tmp_path)]) == 2
+    err = capsys.readouterr().err
+    assert option in err and "whole numbers > 0" in err
+    assert not any(tmp_path.iterdir())

@@ -29,6 +29,7 @@ from pathlib import Path
 
 from ..constants import ENGINES
 from ..errors import HarnessError
+from .options import whole_numbers
 
 __all__ = ["register", "stratified", "run_at", "converge", "crosscheck"]
 
@@ -65,17 +66,6 @@ def register(subparsers):
                                                      "engine-sensitive cells (RUN/engine-crosscheck.json)")
     x.add_argument("--campaign", metavar="FILE", help="the run's campaign file, if it has moved")
     x.add_argument("--workers", type=int, metavar="N")
-
-
-def _ints(text, flag):
-    from ..errors import SpecError
-    try:
-        values = sorted({int(v) for v in str(text).split(",") if v.strip()})
-    except ValueError:
-        values = []
-    if not values:
-        raise SpecError(flag, [(str(text), "must be a comma-separated list of whole numbers, e.g. 100,200,400")])
-    return values
 
 
 def stratified(tasks, per_cell=None, share=None, keys=None):
@@ -284,10 +274,10 @@ def cmd_converge(args):
     ref = None
     if args.reference:
         it, _, hz = args.reference.partition("@")
-        ref = physics_settings({"solver_iterations": _ints(it, "--reference")[0],
-                                "step_hz": _ints(hz, "--reference")[0]}, "--reference")
-    converge(args.campaign, per_cell=args.per_cell, iterations=_ints(args.iterations, "--iterations"),
-             rates=_ints(args.step_hz, "--step-hz"), reference=ref, workers=args.workers, out=args.out,
+        ref = physics_settings({"solver_iterations": whole_numbers(it, "--reference")[0],
+                                "step_hz": whole_numbers(hz, "--reference")[0]}, "--reference")
+    converge(args.campaign, per_cell=args.per_cell, iterations=whole_numbers(args.iterations, "--iterations"),
+             rates=whole_numbers(args.step_hz, "--step-hz"), reference=ref, workers=args.workers, out=args.out,
              resume=args.resume)
     return 0
 

@@ -34,3 +34,15 @@ def numbers(text, flag, example="1,2.5,4"):
     if not values or not all(math.isfinite(v) and v > 0 for v in values):
         raise SpecError(flag, [(str(text), f"must be a comma-separated list of numbers > 0, e.g. {example}")])
     return values
+
+
+def whole_numbers(text, flag, example="100,200,400"):
+    """A comma-separated list of whole numbers > 0, sorted, each once; SpecError naming the option otherwise."""
+    from ..errors import SpecError
+    try:
+        values = sorted({int(v) for v in str(text).split(",") if v.strip()})
+    except ValueError:
+        values = []
+    if not values or values[0] <= 0:
+        raise SpecError(flag, [(str(text), f"must be a comma-separated list of whole numbers > 0, e.g. {example}")])
+    return values
