@@ -84,9 +84,7 @@ def test_slip_distance_of_transients_matches_a_per_step_integral(gripper_name, o
     def each(world):
         ctx = world.ctx
         if ctx.phases:
-            s = sample_contacts(world, ctx.obj, ctx.hand.body)
-            add_link_slips(zip(s.links.tolist(), s.normal_force.tolist(), s.slip.tolist()), world.settings.time_step,
-                           moved)
+            add_link_slips(sample_contacts(world, ctx.obj, ctx.hand.body).slip_rows(), world.settings.time_step, moved)
 
     def tick(ctx):
         if ctx.phases:

@@ -47,6 +47,10 @@ class ContactSample:
     def slip_speed(self):
         return np.linalg.norm(self.slip, axis=1)
 
+    def slip_rows(self):
+        """(link, normal force, slip velocity) of each contact, as add_link_slips takes them."""
+        return zip(self.links.tolist(), self.normal_force.tolist(), self.slip.tolist())
+
 
 _EMPTY = ContactSample(*(np.zeros((0, 3)),) * 2, np.zeros(0), np.zeros((0, 3)), np.zeros((0, 3)),
                        np.zeros(0, dtype=int), np.zeros(0))

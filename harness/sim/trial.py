@@ -338,8 +338,7 @@ class TrialContext:
         load = contact_load(self.last, self.friction_of_link)
         speed = load[0] if load else 0.0
         if slipping:  # the tick's last step, from the sample
-            s = self.last
-            add_link_slips(zip(s.links.tolist(), s.normal_force.tolist(), s.slip.tolist()), step, moved)
+            add_link_slips(self.last.slip_rows(), step, moved)
         slipped = worst_displacement(moved) if slipping else speed * dt
         self._slipping = speed > SLIP_NOISE_FLOOR
         self.total.add(load, dt, slipped)
